@@ -1,0 +1,135 @@
+"""Headless solve: ``thermgui solve MODEL.json --out DIR`` (also ``python -m solver``).
+
+Exit status 0 on success, 2 for invalid input (nothing is written), 1 for anything else.
+"""
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+
+from .errors import Cancelled, ModelError, SolveError
+from .model import load_model
+from .problem import build_problem
+from .results import RunRecorder, sort_for_review
+from .stepping import Stepper
+from .writers import FieldSeriesWriter, write_history_csv, write_peaks_csv, write_run_info
+
+CAUTION = ("Results are engineering estimates from a conduction model with assumed convection coefficients. "
+           "Confirm them by measurement on real hardware and defer to the applicable safety standards, "
+           "codes and licensed practice before relying on them.")
+
+
+class ProgressBar:
+    """A one-line text progress bar on a stream, redrawn at most ten times a second."""
+
+    def __init__(self, stream=sys.stderr, width: int = 30, enabled: bool = True):
+        self.stream, self.width, self.enabled = stream, width, enabled
+        self._last = 0.0
+        self._tty = bool(getattr(stream, "isatty", lambda: False)())
+        self._last_decile = -1
+
+    def update(self, ev, force: bool = False) -> None:
+        if not self.enabled:
+            return
+        frac = ev.fraction
+        if not self._tty:  # a log file: one line per tenth of the run
+            decile = int(frac * 10 + 1e-9)
+            if decile == self._last_decile:
+                return
+            self._last_decile = decile
+        now = time.perf_counter()
+        if self._tty and not force and now - self._last < 0.1:
+            return
+        self._last = now
+        filled = int(round(frac * self.width))
+        eta = ev.elapsed_s * (1 - frac) / frac if frac > 0 else float("nan")
+        hot = float(ev.part_max.max()) if len(ev.part_max) else float("nan")
+        lead, tail = ("\r", "") if self._tty else ("", "\n")
+        self.stream.write(f"{lead}[{'#' * filled}{'.' * (self.width - filled)}] {100 * frac:5.1f}%  "
+                          f"t = {ev.time_s:9.2f} s  hottest {hot:7.2f} °C  left ~{eta:5.0f} s {tail}")
+        self.stream.flush()
+
+    def finish(self) -> None:
+        if self.enabled and self._tty:
+            self.stream.write("\n")
+            self.stream.flush()
+
+
+def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str = "auto",
+                    stream=sys.stdout, err=sys.stderr) -> int:
+    """Run a model file and write results; returns the exit status."""
+    t0 = time.perf_counter()
+    try:
+        model = load_model(model_path)
+        problem = build_problem(model)
+        stepper = Stepper(problem, linear_solver=linear_solver)
+    except ModelError as e:
+        src = e.source or str(model_path)
+        err.write(e.with_source(src).describe() + "\n")
+        return 2
+    say = (lambda *a: None) if quiet else (lambda msg: err.write(msg + "\n"))
+    say(f"{model_path}: {problem.n_nodes:,} nodes, {problem.mesh.n_tets:,} tetrahedra, "
+        f"{stepper.n_steps:,} steps ({stepper.scheme}); linear solver: {stepper.choice.method} "
+        f"({stepper.choice.reason})")
+    for w in problem.warnings:
+        say(f"warning: {w}")
+    out = Path(out_dir)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        err.write(f"{out}: cannot create the output folder ({e.strerror})\n")
+        return 1
+    series = FieldSeriesWriter(out, problem)
+    rec = RunRecorder(problem, field_sink=series, keep_fields=False)
+    bar = ProgressBar(err, enabled=not quiet)
+    ev = None
+    try:
+        for ev in stepper:
+            rec.add(ev)
+            bar.update(ev, force=ev.step == ev.n_steps)
+    except (SolveError, Cancelled) as e:
+        bar.finish()
+        err.write(f"{model_path}: run stopped: {e}\n")
+        return 1
+    bar.finish()
+    series.close()
+    rows = rec.peak_rows()
+    write_peaks_csv(out / "peaks.csv", rows)
+    write_history_csv(out / "history.csv", rec)
+    write_run_info(out / "run.json", problem, rec, stepper, time.perf_counter() - t0)
+    if not quiet:
+        stream.write(format_summary(rows) + "\n")
+        stream.write(f"energy balance: largest step residual {rec.relative_energy_residual:.1e} of the largest "
+                     f"heat flow; results in {out}/ ({time.perf_counter() - t0:.1f} s)\n")
+        stream.write(CAUTION + "\n")
+    return 0
+
+
+def format_summary(rows) -> str:
+    """Plain-text table, parts over their rating first."""
+    head = f"{'part':<24} {'rated °C':>9} {'peak °C':>9} {'at s':>9} {'margin K':>9} {'over at s':>10}  status"
+    lines = [head, "-" * len(head)]
+    for r in sort_for_review(rows):
+        def f(v, w, fmt):
+            return f"{'' if v is None else fmt.format(v):>{w}}"
+        lines.append(f"{r.part[:24]:<24} {f(r.rated_c, 9, '{:.1f}')} {f(r.peak_c, 9, '{:.2f}')} "
+                     f"{f(r.peak_time_s, 9, '{:.1f}')} {f(r.margin_k, 9, '{:+.2f}')} {f(r.first_over_s, 10, '{:.1f}')}"
+                     f"  {r.status.upper() if r.status == 'over' else r.status}")
+    return "\n".join(lines)
+
+
+def add_solve_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("model", help="model file (JSON, format thermgui-model version 1)")
+    p.add_argument("--out", required=True, help="folder for peaks.csv, history.csv, run.json and the field series")
+    p.add_argument("--quiet", action="store_true", help="no progress bar or summary")
+    p.add_argument("--linear-solver", default="auto", choices=["auto", "direct", "multigrid"],
+                   help="linear solver for implicit steps (default: chosen by size)")
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(prog="python -m solver", description="Solve an enclosure model headless.")
+    add_solve_arguments(parser)
+    args = parser.parse_args(argv)
+    return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver)

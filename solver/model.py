@@ -1,0 +1,386 @@
+"""The model file (format "thermgui-model", version 1): schema, loading and checks.
+
+Units at this edge are the user's: millimetres, watts, °C, W/(m²·K), seconds.
+:func:`load_model` returns a validated :class:`Model` or raises :class:`ModelError`
+naming the file, the field path (``parts[3].size_mm[2]``) and the problem.
+"""
+from __future__ import annotations
+
+import json
+import math
+import re
+from pathlib import Path
+from typing import Annotated, Literal, Optional, Union
+
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
+
+from .errors import ModelError
+from .materials import BUILTIN_MATERIALS, Material
+
+FORMAT_NAME = "thermgui-model"
+FORMAT_VERSION = 1
+ABSOLUTE_ZERO_C = -273.15
+SIDES = ("x-", "x+", "y-", "y+", "z-", "z+", "exposed")
+SCHEMES = ("backward-euler", "crank-nicolson", "forward-euler")
+MASS_KINDS = ("consistent", "lumped")
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", strict=True, allow_inf_nan=False)
+
+
+Vec3 = Annotated[list[float], Field(min_length=3, max_length=3)]
+Positive = Annotated[float, Field(gt=0)]
+NonNegative = Annotated[float, Field(ge=0)]
+
+
+# ---------------------------------------------------------------- profiles
+class ConstantProfile(_Strict):
+    type: Literal["constant"]
+    value: float
+
+
+class StepProfile(_Strict):
+    type: Literal["step"]
+    value: float
+    start_s: NonNegative = 0.0
+
+
+class PulseProfile(_Strict):
+    type: Literal["pulse"]
+    high: float
+    low: float = 0.0
+    period_s: Positive
+    duty: Annotated[float, Field(gt=0, le=1)]
+    start_s: NonNegative = 0.0
+
+
+class TableProfile(_Strict):
+    type: Literal["table"]
+    points: Annotated[list[Annotated[list[float], Field(min_length=2, max_length=2)]], Field(min_length=1)]
+
+    @field_validator("points")
+    @classmethod
+    def _increasing(cls, pts):
+        for i, p in enumerate(pts):
+            if p[0] < 0:
+                raise ValueError(f"points[{i}][0]: time must not be negative (got {p[0]:g})")
+            if i and p[0] <= pts[i - 1][0]:
+                raise ValueError(f"points[{i}][0]: table times must increase strictly "
+                                 f"({p[0]:g} s follows {pts[i - 1][0]:g} s)")
+        return pts
+
+
+Profile = Annotated[Union[ConstantProfile, StepProfile, PulseProfile, TableProfile], Field(discriminator="type")]
+PROFILE_TYPES = ("constant", "step", "pulse", "table")
+
+
+def profile_levels(p) -> list[float]:
+    """All values a profile can take (for sign checks)."""
+    if p.type in ("constant", "step"):
+        return [p.value]
+    if p.type == "pulse":
+        return [p.high, p.low]
+    return [v for _, v in p.points]
+
+
+# ---------------------------------------------------------------- items
+class MaterialSpec(_Strict):
+    conductivity: Union[Positive, Annotated[list[Positive], Field(min_length=3, max_length=3)]]
+    density: Positive
+    specific_heat: Positive
+
+    def to_material(self) -> Material:
+        k = self.conductivity
+        kk = tuple(float(v) for v in k) if isinstance(k, list) else (float(k),) * 3
+        return Material(kk, float(self.density), float(self.specific_heat), "model material", "model file")
+
+
+class Part(_Strict):
+    name: Annotated[str, Field(min_length=1)]
+    material: Annotated[str, Field(min_length=1)]
+    origin_mm: Vec3
+    size_mm: Annotated[list[Positive], Field(min_length=3, max_length=3)]
+    rated_c: Optional[float] = None
+    initial_c: Optional[float] = None
+
+
+class HeatLoad(_Strict):
+    part: str
+    profile: Profile
+
+
+def _ambient_before(v):
+    # a plain number is shorthand for a constant profile
+    if isinstance(v, (int, float)) and not isinstance(v, bool):
+        return {"type": "constant", "value": v}
+    return v
+
+
+class Convection(_Strict):
+    name: Annotated[str, Field(min_length=1)]
+    part: str
+    side: Literal["x-", "x+", "y-", "y+", "z-", "z+", "exposed"]
+    h: Positive
+    ambient_c: Optional[Profile] = None
+
+    @field_validator("ambient_c", mode="before")
+    @classmethod
+    def _number_is_constant(cls, v):
+        return _ambient_before(v)
+
+
+class Probe(_Strict):
+    name: Annotated[str, Field(min_length=1)]
+    at_mm: Vec3
+
+
+class MeshSettings(_Strict):
+    cell_mm: Positive = 2.0
+    min_layers: Annotated[int, Field(ge=1, le=50)] = 2
+
+
+class RunSettings(_Strict):
+    duration_s: Positive = 600.0
+    step_s: Positive = 1.0
+    scheme: Literal["backward-euler", "crank-nicolson", "forward-euler"] = "crank-nicolson"
+    mass: Literal["consistent", "lumped"] = "lumped"
+    output_every_s: Optional[Positive] = None
+
+    @property
+    def output_interval_s(self) -> float:
+        """Output spacing; defaults to about 100 rows, never below one step."""
+        if self.output_every_s is not None:
+            return float(self.output_every_s)
+        return max(float(self.step_s), float(self.duration_s) / 100.0)
+
+
+class Model(_Strict):
+    format: Literal["thermgui-model"]
+    version: Literal[1]
+    title: str = ""
+    ambient_c: float = 25.0
+    initial_c: float = 25.0
+    materials: dict[str, MaterialSpec] = Field(default_factory=dict)
+    parts: Annotated[list[Part], Field(min_length=1)]
+    heat_loads: list[HeatLoad] = Field(default_factory=list)
+    convection: list[Convection] = Field(default_factory=list)
+    probes: list[Probe] = Field(default_factory=list)
+    mesh: MeshSettings = Field(default_factory=MeshSettings)
+    run: RunSettings = Field(default_factory=RunSettings)
+
+    # ------------------------------------------------------------ helpers
+    def material_table(self) -> dict[str, Material]:
+        """Built-in materials overridden / extended by the model's own."""
+        table = dict(BUILTIN_MATERIALS)
+        table.update({k: v.to_material() for k, v in self.materials.items()})
+        return table
+
+    def part_index(self, name: str) -> int:
+        for i, p in enumerate(self.parts):
+            if p.name == name:
+                return i
+        raise KeyError(name)
+
+    def to_json_dict(self) -> dict:
+        """Plain JSON-ready dict (for saving); omits unset optional values."""
+        return self.model_dump(mode="json", exclude_none=True)
+
+
+# ---------------------------------------------------------------- errors
+_MESSAGES = {
+    "extra_forbidden": "unknown key (not part of format version 1)",
+    "missing": "required field is missing",
+    "finite_number": "must be a finite number",
+    "float_type": "must be a number",
+    "int_type": "must be a whole number",
+    "string_type": "must be a text string",
+    "list_type": "must be a list",
+    "dict_type": "must be an object",
+    "model_type": "must be an object",
+    "model_attributes_type": "must be an object",
+}
+
+
+def _path_of(loc) -> str:
+    out = ""
+    skip_next_tag = False
+    for item in loc:
+        if isinstance(item, int):
+            out += f"[{item}]"
+            continue
+        if skip_next_tag and item in PROFILE_TYPES:
+            skip_next_tag = False
+            continue
+        skip_next_tag = item in ("profile", "ambient_c")
+        out += ("." if out else "") + str(item)
+    return out
+
+
+def _format_pydantic(err: ValidationError) -> list[tuple[str, str]]:
+    issues = []
+    for e in err.errors(include_url=False):
+        path = _path_of(e["loc"])
+        kind = e["type"]
+        msg = _MESSAGES.get(kind)
+        if msg is None:
+            msg = e["msg"]
+            if msg.startswith("Value error, "):
+                msg = msg[len("Value error, "):]
+            msg = msg[0].lower() + msg[1:] if msg else msg
+        if kind in ("float_type", "finite_number", "int_type", "string_type") and "input" in e:
+            msg += f" (got {json.dumps(e['input']) if _jsonable(e['input']) else repr(e['input'])})"
+        elif kind.startswith(("greater_than", "less_than", "too_short", "too_long", "literal_error")) and "input" in e:
+            shown = e["input"]
+            if not isinstance(shown, (list, dict)):
+                msg += f" (got {json.dumps(shown) if _jsonable(shown) else repr(shown)})"
+        if kind == "union_tag_invalid":
+            msg = f"profile type must be one of {', '.join(PROFILE_TYPES)}"
+        if kind == "union_tag_not_found":
+            msg = "profile needs a \"type\" (" + ", ".join(PROFILE_TYPES) + ")"
+        m = re.match(r"^(points\[\d+\]\[\d\]): (.*)$", msg or "")
+        if m and path.endswith(".points"):
+            path, msg = path[: -len("points")] + m.group(1), m.group(2)
+        if path.endswith("ambient_c") and kind in ("model_type", "model_attributes_type", "dict_type"):
+            msg = "must be a number (°C) or a profile object"
+        issues.append((path, msg))
+    # the same path may be reported by several union branches: keep the first of each
+    seen, unique = set(), []
+    for p, m in issues:
+        if p not in seen:
+            seen.add(p)
+            unique.append((p, m))
+    return unique
+
+
+def _jsonable(v) -> bool:
+    try:
+        json.dumps(v, allow_nan=False)
+        return True
+    except (TypeError, ValueError):
+        return False
+
+
+# ---------------------------------------------------------------- cross checks
+def _cross_check(m: Model) -> list[tuple[str, str]]:
+    issues: list[tuple[str, str]] = []
+    materials = m.material_table()
+    names: dict[str, int] = {}
+    for i, p in enumerate(m.parts):
+        if p.name in names:
+            issues.append((f"parts[{i}].name", f"duplicate part name {p.name!r} (also parts[{names[p.name]}])"))
+        names.setdefault(p.name, i)
+        if p.material not in materials:
+            issues.append((f"parts[{i}].material", f"unknown material {p.material!r}; "
+                           f"define it under \"materials\" or use one of: {', '.join(sorted(materials))}"))
+        if p.initial_c is not None and p.initial_c <= ABSOLUTE_ZERO_C:
+            issues.append((f"parts[{i}].initial_c", "must be above absolute zero (-273.15 °C)"))
+    for key in ("ambient_c", "initial_c"):
+        if getattr(m, key) <= ABSOLUTE_ZERO_C:
+            issues.append((key, "must be above absolute zero (-273.15 °C)"))
+    for i, hl in enumerate(m.heat_loads):
+        if hl.part not in names:
+            issues.append((f"heat_loads[{i}].part", f"unknown part {hl.part!r}"))
+        if any(v < 0 for v in profile_levels(hl.profile)):
+            issues.append((f"heat_loads[{i}].profile", "heat load must not be negative (watts)"))
+    conv_names: dict[str, int] = {}
+    for i, c in enumerate(m.convection):
+        if c.part not in names:
+            issues.append((f"convection[{i}].part", f"unknown part {c.part!r}"))
+        if c.name in conv_names:
+            issues.append((f"convection[{i}].name", f"duplicate convection name {c.name!r}"))
+        conv_names.setdefault(c.name, i)
+        if c.ambient_c is not None and any(v <= ABSOLUTE_ZERO_C for v in profile_levels(c.ambient_c)):
+            issues.append((f"convection[{i}].ambient_c", "must be above absolute zero (-273.15 °C)"))
+    probe_names: dict[str, int] = {}
+    for i, pr in enumerate(m.probes):
+        if pr.name in probe_names:
+            issues.append((f"probes[{i}].name", f"duplicate probe name {pr.name!r}"))
+        probe_names.setdefault(pr.name, i)
+    r = m.run
+    if r.step_s > r.duration_s:
+        issues.append(("run.step_s", f"step ({r.step_s:g} s) is longer than the duration ({r.duration_s:g} s)"))
+    if r.output_every_s is not None and r.output_every_s > r.duration_s:
+        issues.append(("run.output_every_s",
+                       f"output interval ({r.output_every_s:g} s) is longer than the duration ({r.duration_s:g} s)"))
+    if r.scheme == "forward-euler" and r.mass != "lumped":
+        issues.append(("run.mass", "forward Euler needs \"lumped\" capacity (a consistent capacity matrix "
+                                   "would need a linear solve every step and loses the explicit scheme's point)"))
+    if r.duration_s / r.step_s > 5_000_000:
+        issues.append(("run.step_s", "more than 5 million steps; choose a longer step"))
+    return issues
+
+
+# ---------------------------------------------------------------- public API
+def parse_model(data, source: str | None = None) -> Model:
+    """Validate a JSON-like dict; raise :class:`ModelError` listing every problem found."""
+    if not isinstance(data, dict):
+        raise ModelError(("", "the model file must hold a JSON object"), source)
+    head = []
+    if data.get("format") != FORMAT_NAME:
+        head.append(("format", f"must be \"{FORMAT_NAME}\" (got {json.dumps(data.get('format'))})"
+                     if "format" in data else f"required field is missing (expected \"{FORMAT_NAME}\")"))
+    if "format" in data and data.get("format") == FORMAT_NAME and data.get("version") != FORMAT_VERSION:
+        head.append(("version", f"unsupported format version {json.dumps(data.get('version'))}; "
+                                f"this program reads version {FORMAT_VERSION}"))
+    if head:
+        raise ModelError(head, source)
+    try:
+        model = Model.model_validate(data)
+    except ValidationError as err:
+        raise ModelError(_format_pydantic(err), source) from None
+    issues = _cross_check(model)
+    if issues:
+        raise ModelError(issues, source)
+    return model
+
+
+def _reject_constants(token):
+    raise ValueError(f"{token} is not a number")
+
+
+def load_model(path) -> Model:
+    """Read and validate a model file; errors name the file, the field and the problem."""
+    path = Path(path)
+    src = str(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise ModelError(("", "file not found"), src) from None
+    except IsADirectoryError:
+        raise ModelError(("", "is a folder, not a model file"), src) from None
+    except UnicodeDecodeError as e:
+        raise ModelError(("", f"not a text file (UTF-8 decoding failed at byte {e.start})"), src) from None
+    except OSError as e:
+        raise ModelError(("", f"cannot be read ({e.strerror})"), src) from None
+    try:
+        data = json.loads(text, parse_constant=_reject_constants)
+    except json.JSONDecodeError as e:
+        raise ModelError(("", f"not valid JSON: {e.msg} at line {e.lineno}, column {e.colno}"), src) from None
+    except ValueError as e:
+        raise ModelError(("", f"not valid JSON: {e} (JSON numbers must be finite)"), src) from None
+    return parse_model(data, src)
+
+
+def save_model(model: Model, path) -> None:
+    """Write the model as pretty JSON through a temporary file and an atomic rename."""
+    import os
+    import tempfile
+
+    path = Path(path)
+    text = json.dumps(model.to_json_dict(), indent=2) + "\n"
+    fd, tmp = tempfile.mkstemp(prefix=".~" + path.name, dir=str(path.parent or "."))
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(text)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def is_finite_number(v) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)

@@ -1,0 +1,202 @@
+"""From a validated model to the semi-discrete system M d' + K d = F(t).
+
+``F(t) = Σ_loads P(t)·s_part + Σ_convection b_c·T_amb,c(t)``, where ``s_part`` spreads a part's
+watts over its volume and ``b_c = ∫ h Nᵢ dA`` over that convection entry's faces.
+Temperatures in °C (the problem is linear, so offsets are exact), SI elsewhere.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.sparse as sp
+
+from . import assemble
+from .errors import ModelError
+from .mesh import MM, Mesh, build_mesh, convection_face_mask, isolated_parts
+from .probes import probe_matrix
+from .profiles import Constant, ProfileFunction, make_profile
+
+
+@dataclass
+class PartNodes:
+    """Node sets of all parts, packed for one-call reductions (np.maximum.reduceat)."""
+
+    index: np.ndarray  # node ids, part after part
+    offsets: np.ndarray  # start of each part in ``index``
+    counts: np.ndarray
+
+    def maxima(self, d: np.ndarray) -> np.ndarray:
+        vals = d[self.index]
+        out = np.full(len(self.counts), np.nan)
+        ok = self.counts > 0
+        out[ok] = np.maximum.reduceat(vals, self.offsets[ok])
+        return out
+
+    def minima(self, d: np.ndarray) -> np.ndarray:
+        vals = d[self.index]
+        out = np.full(len(self.counts), np.nan)
+        ok = self.counts > 0
+        out[ok] = np.minimum.reduceat(vals, self.offsets[ok])
+        return out
+
+    def argmax(self, d: np.ndarray, part: int) -> int:
+        s = self.offsets[part]
+        ids = self.index[s:s + self.counts[part]]
+        return int(ids[np.argmax(d[ids])])
+
+
+@dataclass
+class Problem:
+    model: object
+    mesh: Mesh
+    conductivity: sp.csr_matrix  # K_cond, W/K
+    convection: sp.csr_matrix  # Σ ∫ h NᵢNⱼ dA, W/K
+    capacity: sp.csr_matrix | None  # consistent M, J/K (None when lumped)
+    lumped: np.ndarray  # row sums of M, J/K (always available)
+    heat_shares: sp.csr_matrix  # (n_parts, N)
+    heat_profiles: list  # (part index, ProfileFunction)
+    conv_loads: list  # (b (N,), ProfileFunction of ambient °C)
+    probes: sp.csr_matrix  # (n_probes, N)
+    initial: np.ndarray  # (N,) °C
+    part_nodes: PartNodes
+    part_volume: np.ndarray  # m³
+    warnings: list = field(default_factory=list)
+
+    @property
+    def n_nodes(self) -> int:
+        return self.mesh.n_nodes
+
+    @property
+    def heat_shares_t(self) -> sp.csr_matrix:
+        if getattr(self, "_shares_t", None) is None:
+            self._shares_t = self.heat_shares.T.tocsr()
+        return self._shares_t
+
+    @property
+    def stiffness(self) -> sp.csr_matrix:
+        """K = conduction + convection."""
+        return self.conductivity + self.convection
+
+    @property
+    def mass_matrix(self):
+        """Capacity matrix as used by the run (consistent sparse, or lumped diagonal)."""
+        if self.capacity is not None:
+            return self.capacity
+        return sp.diags(self.lumped).tocsr()
+
+    def load(self, t: float, side: str = "right") -> np.ndarray:
+        """F(t) in W at every node (one-sided limit at jumps)."""
+        watts = np.zeros(self.heat_shares.shape[0])
+        for p, prof in self.heat_profiles:
+            watts[p] += prof.value(t, side)
+        f = self.heat_shares_t @ watts
+        for b, amb in self.conv_loads:
+            f += amb.value(t, side) * b
+        return f
+
+    def heat_input(self, t: float, side: str = "right") -> float:
+        """Total heat generation in W."""
+        return float(sum(prof.value(t, side) for _, prof in self.heat_profiles))
+
+    def convected_out(self, d: np.ndarray, t: float, side: str = "right") -> float:
+        """Heat leaving through convection faces, W (Σ ∫ h (T - T_amb) dA)."""
+        return float(sum(b @ d - amb.value(t, side) * b.sum() for b, amb in self.conv_loads))
+
+    def breakpoints(self, t_end: float):
+        out = []
+        for _, prof in self.heat_profiles:
+            out += prof.breakpoints(t_end)
+        for _, amb in self.conv_loads:
+            out += amb.breakpoints(t_end)
+        return out
+
+
+def material_arrays(model, tet_part: np.ndarray):
+    """Per-element diagonal conductivity (E, 3) and ρc (E,)."""
+    table = model.material_table()
+    k = np.array([table[p.material].conductivity for p in model.parts], dtype=float)
+    rc = np.array([table[p.material].volumetric_heat_capacity for p in model.parts], dtype=float)
+    return k[tet_part], rc[tet_part]
+
+
+def initial_field(model, mesh: Mesh) -> np.ndarray:
+    """Model-wide initial temperature, then each part's own on its nodes (later part wins)."""
+    d0 = np.full(mesh.n_nodes, float(model.initial_c))
+    for i, p in enumerate(model.parts):
+        if p.initial_c is not None:
+            ids = np.unique(mesh.tets[mesh.tet_part == i])
+            d0[ids] = float(p.initial_c)
+    return d0
+
+
+def build_problem(model, mesh: Mesh | None = None) -> Problem:
+    """Mesh (unless given) and assemble everything the stepper needs."""
+    mesh = mesh or build_mesh(model)
+    warnings = list(mesh.warnings)
+    n_parts = len(model.parts)
+    vol, grads = assemble.tet_gradients(mesh.nodes, mesh.tets)
+    k_el, rc_el = material_arrays(model, mesh.tet_part)
+    kc = assemble.conductivity_matrix(mesh.nodes, mesh.tets, k_el, vol, grads)
+    lumped = assemble.lumped_capacity(mesh.nodes, mesh.tets, rc_el, vol)
+    capacity = None
+    if model.run.mass == "consistent":
+        capacity = assemble.capacity_matrix(mesh.nodes, mesh.tets, rc_el, vol)
+
+    part_vol = np.bincount(mesh.tet_part, weights=vol, minlength=n_parts)
+    issues = []
+    for i, p in enumerate(model.parts):
+        if part_vol[i] <= 0:
+            warnings.append(f"part {p.name!r} is entirely covered by later parts and holds no volume")
+    shares = assemble.node_volume_shares(mesh.nodes, mesh.tets, vol, mesh.tet_part, n_parts)
+    heat_profiles = []
+    for i, hl in enumerate(model.heat_loads):
+        pi = model.part_index(hl.part)
+        if part_vol[pi] <= 0:
+            issues.append((f"heat_loads[{i}].part", f"part {hl.part!r} holds no volume (covered by later parts), "
+                                                    "so it cannot take a heat load"))
+        heat_profiles.append((pi, make_profile(hl.profile)))
+
+    conv_loads = []
+    conv_tris, conv_h = [], []
+    convected_parts = set()
+    bf = mesh.boundary
+    for i, c in enumerate(model.convection):
+        mask = convection_face_mask(mesh, model, i)
+        if not mask.any():
+            warnings.append(f"convection {c.name!r} ({c.side} of {c.part!r}) covers no exposed face; it has no effect")
+            continue
+        convected_parts.add(model.part_index(c.part))
+        tris = bf.tris[mask]
+        h = np.full(len(tris), float(c.h))
+        conv_tris.append(tris)
+        conv_h.append(h)
+        amb = make_profile(c.ambient_c) if c.ambient_c is not None else Constant(float(model.ambient_c))
+        conv_loads.append((assemble.surface_load(mesh.nodes, tris, h, bf.area[mask]), amb))
+    n = mesh.n_nodes
+    if conv_tris:
+        tris = np.vstack(conv_tris)
+        conv = assemble.surface_matrix(mesh.nodes, tris, np.concatenate(conv_h))
+    else:
+        conv = sp.csr_matrix((n, n))
+        warnings.append("no convection face: heat cannot leave the model, temperatures can only rise")
+    if conv_tris:
+        cold = isolated_parts(mesh, convected_parts)
+        if cold:
+            warnings.append("no path to any convection face from: " + ", ".join(repr(c) for c in cold)
+                            + " (their temperature can only rise)")
+
+    points = [np.asarray(pr.at_mm, dtype=float) * MM for pr in model.probes]
+    pmat, missing = probe_matrix(mesh, points)
+    for k in missing:
+        issues.append((f"probes[{k}].at_mm", "point is not inside any part (no meshed solid there)"))
+    if issues:
+        raise ModelError(issues)
+
+    # packed node sets per part
+    ids_per_part = [np.unique(mesh.tets[mesh.tet_part == i]) for i in range(n_parts)]
+    counts = np.array([len(x) for x in ids_per_part], dtype=np.int64)
+    offsets = np.concatenate([[0], np.cumsum(counts)[:-1]]).astype(np.int64)
+    index = np.concatenate(ids_per_part) if n_parts else np.zeros(0, dtype=np.int64)
+    return Problem(model, mesh, kc, conv.tocsr(), capacity, lumped, shares, heat_profiles, conv_loads, pmat,
+                   initial_field(model, mesh), PartNodes(index, offsets, counts), part_vol, warnings)

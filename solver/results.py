@@ -1,0 +1,145 @@
+"""Per-part results accumulated from the step stream: peaks, history, energy balance."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .mesh import MM
+
+PEAK_COLUMNS = ["part", "rated_c", "peak_c", "peak_time_s", "margin_k", "first_over_s",
+                "hotspot_x_mm", "hotspot_y_mm", "hotspot_z_mm", "status"]
+
+
+@dataclass
+class PeakRow:
+    part: str
+    rated_c: float | None
+    peak_c: float
+    peak_time_s: float
+    margin_k: float | None
+    first_over_s: float | None
+    hotspot_mm: tuple
+    mean_over_time_c: float
+
+    @property
+    def status(self) -> str:
+        if self.rated_c is None:
+            return "unrated"
+        return "over" if self.first_over_s is not None else "ok"
+
+    def as_csv_row(self) -> list:
+        def num(v, fmt="{:.3f}"):
+            return "" if v is None or (isinstance(v, float) and np.isnan(v)) else fmt.format(v)
+        return [self.part, num(self.rated_c, "{:g}"), num(self.peak_c), num(self.peak_time_s, "{:.6g}"),
+                num(self.margin_k), num(self.first_over_s, "{:.6g}"),
+                *(num(c) for c in self.hotspot_mm), self.status]
+
+
+@dataclass
+class RunRecorder:
+    """Feed it every :class:`~solver.stepping.StepEvent`; read peaks and history after.
+
+    Fields at output times are kept as float32 unless ``field_sink(time_s, field)`` is given,
+    in which case they are handed over (for example to a file writer) and not kept.
+    """
+
+    problem: object
+    field_sink: object = None
+    keep_fields: bool = True
+    times: list = field(default_factory=list)
+    part_max_history: list = field(default_factory=list)
+    part_mean_history: list = field(default_factory=list)
+    probe_history: list = field(default_factory=list)
+    fields: list = field(default_factory=list)
+    energy: dict = field(default_factory=lambda: {"in_j": 0.0, "out_j": 0.0, "stored_j": 0.0,
+                                                  "max_residual_w": 0.0, "max_flow_w": 0.0})
+
+    def __post_init__(self):
+        p = self.problem
+        n = len(p.model.parts)
+        self.rated = np.array([np.nan if q.rated_c is None else q.rated_c for q in p.model.parts])
+        self.peak = np.full(n, -np.inf)
+        self.peak_time = np.zeros(n)
+        self.hotspot = np.zeros((n, 3))
+        self.first_over = np.full(n, np.nan)
+        self.mean_integral = np.zeros(n)
+        self._prev = None  # (time, part_max, part_mean)
+        self.steps_seen = 0
+
+    def add(self, ev) -> None:
+        p = self.problem
+        pm = ev.part_max
+        better = pm > self.peak
+        if better.any():
+            for i in np.nonzero(better)[0]:
+                if p.part_nodes.counts[i] == 0:
+                    continue
+                self.peak[i] = pm[i]
+                self.peak_time[i] = ev.time_s
+                self.hotspot[i] = p.mesh.nodes[p.part_nodes.argmax(ev.field, i)] / MM
+        over = (pm > self.rated) & np.isnan(self.first_over)
+        if over.any():
+            if self._prev is None:
+                self.first_over[over] = ev.time_s
+            else:
+                t0, m0, _ = self._prev
+                frac = (self.rated[over] - m0[over]) / np.where(pm[over] != m0[over], pm[over] - m0[over], 1.0)
+                self.first_over[over] = t0 + np.clip(frac, 0.0, 1.0) * (ev.time_s - t0)
+        if self._prev is not None:
+            t0, _, mean0 = self._prev
+            self.mean_integral += 0.5 * (mean0 + ev.part_mean) * (ev.time_s - t0)
+            e = self.energy
+            e["in_j"] += ev.heat_in_w * ev.dt
+            e["out_j"] += ev.convected_out_w * ev.dt
+            e["stored_j"] += ev.stored_w * ev.dt
+            e["max_residual_w"] = max(e["max_residual_w"], abs(ev.energy_residual_w))
+            e["max_flow_w"] = max(e["max_flow_w"], abs(ev.heat_in_w), abs(ev.convected_out_w), abs(ev.stored_w))
+        self._prev = (ev.time_s, pm.copy(), ev.part_mean.copy())
+        self.steps_seen += 1
+        if ev.is_output:
+            self.times.append(ev.time_s)
+            self.part_max_history.append(pm.copy())
+            self.part_mean_history.append(ev.part_mean.copy())
+            self.probe_history.append(np.asarray(ev.probes).copy())
+            if self.field_sink is not None:
+                self.field_sink(ev.time_s, ev.field)
+            if self.keep_fields:
+                self.fields.append(np.asarray(ev.field, dtype=np.float32).copy())
+
+    @property
+    def relative_energy_residual(self) -> float:
+        """Largest per-step energy residual relative to the largest heat flow of the run."""
+        e = self.energy
+        return e["max_residual_w"] / e["max_flow_w"] if e["max_flow_w"] > 0 else 0.0
+
+    def peak_rows(self) -> list[PeakRow]:
+        rows = []
+        duration = self._prev[0] if self._prev else 0.0
+        for i, part in enumerate(self.problem.model.parts):
+            rated = None if np.isnan(self.rated[i]) else float(self.rated[i])
+            empty = self.problem.part_nodes.counts[i] == 0
+            peak = np.nan if empty else float(self.peak[i])
+            rows.append(PeakRow(
+                part=part.name, rated_c=rated, peak_c=peak,
+                peak_time_s=np.nan if empty else float(self.peak_time[i]),
+                margin_k=None if rated is None or empty else rated - peak,
+                first_over_s=None if np.isnan(self.first_over[i]) else float(self.first_over[i]),
+                hotspot_mm=(np.nan,) * 3 if empty else tuple(float(v) for v in self.hotspot[i]),
+                mean_over_time_c=float(self.mean_integral[i] / duration) if duration > 0 else float("nan")))
+        return rows
+
+    def history_arrays(self):
+        """times (T,), part maxima (T, P), probe values (T, K)."""
+        n_probes = self.problem.probes.shape[0]
+        probes = np.array(self.probe_history) if self.probe_history else np.zeros((0, n_probes))
+        return np.array(self.times), np.array(self.part_max_history), probes.reshape(len(self.times), n_probes)
+
+
+def sort_for_review(rows: list[PeakRow]) -> list[PeakRow]:
+    """Parts over their rating first (least margin first), then rated by margin, then unrated by peak."""
+    def key(r: PeakRow):
+        group = {"over": 0, "ok": 1, "unrated": 2}[r.status]
+        sub = r.margin_k if r.margin_k is not None else -r.peak_c
+        return (group, sub)
+    return sorted(rows, key=key)

@@ -1,0 +1,74 @@
+"""The sequence of time steps: fixed nominal step, landing exactly on every profile
+breakpoint and every output time, with damped start-up after each jump (Crank–Nicolson).
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+TIME_TOL = 1e-9  # seconds; breakpoints closer than this are merged
+
+
+@dataclass(frozen=True)
+class TimeStep:
+    t0: float
+    t1: float
+    theta: float
+    output: bool  # t1 is an output time
+
+    @property
+    def dt(self) -> float:
+        return self.t1 - self.t0
+
+
+def output_times(duration: float, every: float) -> np.ndarray:
+    """0, every, 2·every, … and the duration (added if it is not a multiple)."""
+    n = int(math.floor(duration / every + 1e-9))
+    times = [k * every for k in range(n + 1)]
+    if duration - times[-1] > TIME_TOL:
+        times.append(duration)
+    else:
+        times[-1] = duration
+    return np.array(times)
+
+
+def merge_times(times) -> np.ndarray:
+    t = np.sort(np.asarray(list(times), dtype=float))
+    if len(t) == 0:
+        return t
+    keep = np.concatenate([[True], np.diff(t) > TIME_TOL])
+    return t[keep]
+
+
+def plan_steps(duration: float, step: float, theta: float, breakpoints, outputs,
+               damp_after_jumps: bool = True) -> list[TimeStep]:
+    """Steps of at most ``step`` seconds landing on every breakpoint and output time.
+
+    Each interval between landing times is divided into equal steps. With Crank–Nicolson
+    (0 < θ < 1) and ``damp_after_jumps``, the first step after t = 0 and after each jump is
+    replaced by two backward-Euler half steps (Rannacher start-up), which damps the stiff
+    components that Crank–Nicolson would otherwise carry as oscillations.
+    """
+    jumps = {round(b.time_s, 9) for b in breakpoints if b.jump and 0.0 < b.time_s < duration}
+    marks = merge_times([0.0, duration, *outputs, *(b.time_s for b in breakpoints if 0.0 < b.time_s < duration)])
+    marks = marks[(marks >= 0.0) & (marks <= duration + TIME_TOL)]
+    outs = merge_times(outputs)
+    damp = damp_after_jumps and 0.0 < theta < 1.0
+    steps: list[TimeStep] = []
+    for a, b in zip(marks[:-1], marks[1:]):
+        n = max(1, int(math.ceil((b - a) / step - 1e-9)))
+        h = (b - a) / n
+        starts_smoothly = not (a == 0.0 or round(a, 9) in jumps)
+        for k in range(n):
+            t0 = a + k * h
+            t1 = b if k == n - 1 else a + (k + 1) * h
+            is_out = bool(np.any(np.abs(outs - t1) <= TIME_TOL))
+            if k == 0 and damp and not starts_smoothly:
+                mid = t0 + 0.5 * (t1 - t0)
+                steps.append(TimeStep(t0, mid, 1.0, False))
+                steps.append(TimeStep(mid, t1, 1.0, is_out))
+            else:
+                steps.append(TimeStep(t0, t1, theta, is_out))
+    return steps
