@@ -11,10 +11,8 @@ from pathlib import Path
 
 from .errors import Cancelled, ModelError, SolveError
 from .model import load_model
-from .problem import build_problem
-from .results import RunRecorder, sort_for_review
-from .stepping import Stepper
-from .writers import FieldSeriesWriter, write_history_csv, write_peaks_csv, write_run_info
+from .results import sort_for_review
+from .session import RunSession
 
 CAUTION = ("Results are engineering estimates from a conduction model with assumed convection coefficients. "
            "Confirm them by measurement on real hardware and defer to the applicable safety standards, "
@@ -63,46 +61,32 @@ def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str
     t0 = time.perf_counter()
     try:
         model = load_model(model_path)
-        problem = build_problem(model)
-        stepper = Stepper(problem, linear_solver=linear_solver)
+        session = RunSession(model, out_dir, linear_solver=linear_solver)
     except ModelError as e:
-        src = e.source or str(model_path)
-        err.write(e.with_source(src).describe() + "\n")
+        err.write(e.with_source(e.source or str(model_path)).describe() + "\n")
         return 2
-    say = (lambda *a: None) if quiet else (lambda msg: err.write(msg + "\n"))
-    say(f"{model_path}: {problem.n_nodes:,} nodes, {problem.mesh.n_tets:,} tetrahedra, "
-        f"{stepper.n_steps:,} steps ({stepper.scheme}); linear solver: {stepper.choice.method} "
-        f"({stepper.choice.reason})")
-    for w in problem.warnings:
+    say = (lambda msg: None) if quiet else (lambda msg: err.write(msg + "\n"))
+    say(f"{model_path}: {session.describe()}")
+    for w in session.warnings:
         say(f"warning: {w}")
-    out = Path(out_dir)
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as e:
-        err.write(f"{out}: cannot create the output folder ({e.strerror})\n")
-        return 1
-    series = FieldSeriesWriter(out, problem)
-    rec = RunRecorder(problem, field_sink=series, keep_fields=False)
     bar = ProgressBar(err, enabled=not quiet)
-    ev = None
     try:
-        for ev in stepper:
-            rec.add(ev)
+        for ev in session.events():
             bar.update(ev, force=ev.step == ev.n_steps)
     except (SolveError, Cancelled) as e:
         bar.finish()
         err.write(f"{model_path}: run stopped: {e}\n")
         return 1
+    except OSError as e:
+        bar.finish()
+        err.write(f"{out_dir}: cannot write results ({e.strerror or e})\n")
+        return 1
     bar.finish()
-    series.close()
-    rows = rec.peak_rows()
-    write_peaks_csv(out / "peaks.csv", rows)
-    write_history_csv(out / "history.csv", rec)
-    write_run_info(out / "run.json", problem, rec, stepper, time.perf_counter() - t0)
+    rows = session.finish()
     if not quiet:
         stream.write(format_summary(rows) + "\n")
-        stream.write(f"energy balance: largest step residual {rec.relative_energy_residual:.1e} of the largest "
-                     f"heat flow; results in {out}/ ({time.perf_counter() - t0:.1f} s)\n")
+        stream.write(f"energy balance: largest step residual {session.recorder.relative_energy_residual:.1e} of "
+                     f"the largest heat flow; results in {out_dir} ({time.perf_counter() - t0:.1f} s)\n")
         stream.write(CAUTION + "\n")
     return 0
 

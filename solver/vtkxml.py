@@ -55,7 +55,7 @@ def write_vtu(path, points: np.ndarray, tets: np.ndarray, point_data: dict, cell
     field_xml = ""
     if field_data_time is not None:
         field_xml = (f'<FieldData><DataArray type="Float64" Name="TimeValue" NumberOfTuples="1" '
-                     f'format="ascii">{field_data_time!r}</DataArray></FieldData>')
+                     f'format="ascii">{float(field_data_time):.17g}</DataArray></FieldData>')
     head = ('<?xml version="1.0"?>\n<VTKFile type="UnstructuredGrid" version="1.0" byte_order="LittleEndian" '
             'header_type="UInt64" compressor="vtkZLibDataCompressor">\n<UnstructuredGrid>'
             f'{field_xml}<Piece NumberOfPoints="{n_pts}" NumberOfCells="{n_cells}">'
@@ -110,7 +110,7 @@ def write_pvd(path, entries) -> None:
     """Write a ParaView collection: ``entries`` is a list of (time_s, relative file name)."""
     lines = ['<?xml version="1.0"?>', '<VTKFile type="Collection" version="1.0" byte_order="LittleEndian">',
              "<Collection>"]
-    lines += [f'  <DataSet timestep="{t!r}" part="0" file="{f}"/>' for t, f in entries]
+    lines += [f'  <DataSet timestep="{float(t):.17g}" part="0" file="{f}"/>' for t, f in entries]
     lines += ["</Collection>", "</VTKFile>", ""]
     Path(path).write_text("\n".join(lines))
 
