@@ -67,6 +67,8 @@ def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str
         return 2
     say = (lambda msg: None) if quiet else (lambda msg: err.write(msg + "\n"))
     say(f"{model_path}: {session.describe()}")
+    for line in session.resolution():
+        say(f"  mesh in {line}")
     for w in session.warnings:
         say(f"warning: {w}")
     bar = ProgressBar(err, enabled=not quiet)

@@ -13,6 +13,7 @@ import time
 from pathlib import Path
 from typing import Callable, Iterator
 
+from .meshreport import resolution_report
 from .problem import build_problem
 from .results import PeakRow, RunRecorder
 from .stepping import StepEvent, Stepper
@@ -37,6 +38,10 @@ class RunSession:
     @property
     def warnings(self) -> list[str]:
         return self.problem.warnings
+
+    def resolution(self) -> list[str]:
+        """One line per heated or rated part: how many cells span it and how wide they are."""
+        return [r.describe() for r in resolution_report(self.model, self.problem.mesh)]
 
     def describe(self) -> str:
         p, s = self.problem, self.stepper
