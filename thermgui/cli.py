@@ -7,6 +7,7 @@
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from pathlib import Path
 
@@ -36,7 +37,17 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv=None) -> int:
     args = build_parser().parse_args(argv)
     if args.command == "solve":
-        return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver)
+        try:
+            return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver)
+        except KeyboardInterrupt:
+            sys.stderr.write("interrupted\n")
+            return 1
+        except Exception as e:  # anything unexpected: a message, not a traceback (set THERMGUI_DEBUG=1 for one)
+            if os.environ.get("THERMGUI_DEBUG"):
+                raise
+            sys.stderr.write(f"{args.model}: internal error: {type(e).__name__}: {e}\n"
+                             "(set THERMGUI_DEBUG=1 to see the traceback)\n")
+            return 1
     path = Path(args.path) if args.command == "open" else default_sample()
     from .app import run_app  # Qt is imported only when a window is wanted
 
