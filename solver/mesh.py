@@ -33,7 +33,14 @@ def _kuhn_tets() -> np.ndarray:
             v[ax] = 1
             corners.append(v[0] + 2 * v[1] + 4 * v[2])
         tets.append(corners)
-    return np.array(tets, dtype=np.int64)
+    tets = np.array(tets, dtype=np.int64)
+    # odd permutations give negatively oriented tets: swap two corners so every tet has the
+    # positive orientation VTK expects (0, 1, 2 counter-clockwise seen from 3)
+    corner_xyz = np.array([[c & 1, (c >> 1) & 1, (c >> 2) & 1] for c in range(8)], dtype=float)
+    x = corner_xyz[tets]
+    negative = np.linalg.det(x[:, 1:] - x[:, :1]) < 0
+    tets[negative] = tets[negative][:, [0, 1, 3, 2]]
+    return tets
 
 
 KUHN_TETS = _kuhn_tets()
