@@ -5,6 +5,7 @@ Units as in the model file (mm, °C, W, s) unless a name says otherwise (``_m`` 
 from __future__ import annotations
 
 import copy
+import functools
 
 import numpy as np
 import scipy.sparse as sp
@@ -67,12 +68,13 @@ def with_run(d: dict, **run) -> dict:
 
 
 # ---------------------------------------------------------------- outside references
+@functools.lru_cache(maxsize=64)
 def plane_wall_roots(bi: float, n: int) -> np.ndarray:
     """First ``n`` positive roots of ζ tan ζ = Bi (one in each ((k)π, (k+½)π)), by brentq."""
     roots = []
     for k in range(n):
         lo, hi = k * np.pi + 1e-12, k * np.pi + 0.5 * np.pi - 1e-12
-        roots.append(brentq(lambda z: z * np.tan(z) - bi, lo, hi, xtol=1e-15, rtol=4e-16, maxiter=200))
+        roots.append(brentq(lambda z: z * np.tan(z) - bi, lo, hi, xtol=1e-15, rtol=1e-15, maxiter=200))
     return np.array(roots)
 
 
@@ -82,7 +84,7 @@ def plane_wall(x_over_l, fo, bi, n_terms=80):
     Series solution: Incropera & DeWitt, Fundamentals of Heat and Mass Transfer, §5.5.1
     (exact solution, Cₙ = 4 sin ζₙ / (2ζₙ + sin 2ζₙ)); eigenvalues computed here by brentq.
     """
-    z = plane_wall_roots(bi, n_terms)
+    z = plane_wall_roots(float(bi), int(n_terms))
     c = 4.0 * np.sin(z) / (2.0 * z + np.sin(2.0 * z))
     x = np.atleast_1d(np.asarray(x_over_l, dtype=float))
     return np.sum(c[None, :] * np.exp(-z[None, :] ** 2 * fo) * np.cos(np.outer(x, z)), axis=1)
