@@ -1,0 +1,198 @@
+"""Pure edits of a model dict (the JSON form of :class:`solver.model.Model`), with no Qt.
+
+Every function takes a model dict and returns a *new* dict; the caller validates the result
+with :func:`solver.model.parse_model` before it becomes the document's model. Items are
+addressed by ``(kind, index)`` with kind one of :data:`KINDS`. Lengths in mm, powers in W,
+temperatures in °C, film coefficients in W/(m²·K), times in s.
+"""
+from __future__ import annotations
+
+import copy
+
+KINDS = ("parts", "heat_loads", "convection", "probes")
+FACES = ("x-", "x+", "y-", "y+", "z-", "z+")
+
+
+def clone(d: dict) -> dict:
+    return copy.deepcopy(d)
+
+
+def set_value(d: dict, path: tuple, value) -> dict:
+    """Set ``d[path[0]][path[1]]...`` to ``value`` (keys or list indices); ``None`` removes a key."""
+    out = clone(d)
+    node = out
+    for key in path[:-1]:
+        node = node[key]
+    if value is None and isinstance(node, dict):
+        node.pop(path[-1], None)
+    else:
+        node[path[-1]] = value
+    return out
+
+
+def unique_name(base: str, taken) -> str:
+    """``base`` if free, else ``base 2``, ``base 3``, ..."""
+    taken = set(taken)
+    if base not in taken:
+        return base
+    stem = base.rstrip("0123456789").rstrip() or base
+    n = 2
+    while f"{stem} {n}" in taken:
+        n += 1
+    return f"{stem} {n}"
+
+
+def names_of(d: dict, kind: str) -> list[str]:
+    return [it.get("name", "") for it in d.get(kind, [])]
+
+
+def model_bounds(d: dict) -> tuple[list[float], list[float]]:
+    """Lower and upper corner (mm) of all parts together."""
+    parts = d.get("parts", [])
+    if not parts:
+        return [0.0, 0.0, 0.0], [0.0, 0.0, 0.0]
+    lo = [min(p["origin_mm"][a] for p in parts) for a in range(3)]
+    hi = [max(p["origin_mm"][a] + p["size_mm"][a] for p in parts) for a in range(3)]
+    return lo, hi
+
+
+def new_item(d: dict, kind: str, near_part: str | None = None) -> dict:
+    """A sensible new item of ``kind`` for model ``d`` (the new part sits on top of the model)."""
+    parts = d.get("parts", [])
+    first = near_part or (parts[0]["name"] if parts else "")
+    if kind == "parts":
+        lo, hi = model_bounds(d)
+        return {"name": unique_name("new part", names_of(d, "parts")), "material": "aluminium-6061",
+                "origin_mm": [lo[0], lo[1], hi[2]], "size_mm": [10.0, 10.0, 2.0]}
+    if kind == "heat_loads":
+        return {"part": first, "profile": {"type": "constant", "value": 1.0}}
+    if kind == "convection":
+        return {"name": unique_name("new face", names_of(d, "convection")), "part": first, "side": "exposed",
+                "h": 8.0}
+    if kind == "probes":
+        if near_part and near_part in names_of(d, "parts"):
+            p = parts[names_of(d, "parts").index(near_part)]
+            at = [p["origin_mm"][a] + p["size_mm"][a] / 2 for a in range(3)]
+        else:
+            lo, hi = model_bounds(d)
+            at = [(lo[a] + hi[a]) / 2 for a in range(3)]
+        return {"name": unique_name("new probe", names_of(d, "probes")), "at_mm": at}
+    raise KeyError(kind)
+
+
+def add_item(d: dict, kind: str, item: dict) -> tuple[dict, int]:
+    """Append ``item``; returns the new dict and the item's index."""
+    out = clone(d)
+    out.setdefault(kind, []).append(clone(item))
+    return out, len(out[kind]) - 1
+
+
+def duplicate_item(d: dict, kind: str, index: int) -> tuple[dict, int]:
+    """Copy item ``index`` right after itself under a fresh name; parts keep their place."""
+    out = clone(d)
+    item = clone(out[kind][index])
+    if "name" in item:
+        item["name"] = unique_name(item["name"] + " copy", names_of(out, kind))
+    out[kind].insert(index + 1, item)
+    return out, index + 1
+
+
+def rename_item(d: dict, kind: str, index: int, new_name: str) -> dict:
+    """Rename; renaming a part also updates the heat loads and convection faces that name it."""
+    out = clone(d)
+    old = out[kind][index].get("name")
+    out[kind][index]["name"] = new_name
+    if kind == "parts":
+        for ref_kind in ("heat_loads", "convection"):
+            for it in out.get(ref_kind, []):
+                if it.get("part") == old:
+                    it["part"] = new_name
+    return out
+
+
+def dependents(d: dict, part_name: str) -> dict[str, list[int]]:
+    """Indices of heat loads and convection faces that refer to a part."""
+    return {k: [i for i, it in enumerate(d.get(k, [])) if it.get("part") == part_name]
+            for k in ("heat_loads", "convection")}
+
+
+def delete_item(d: dict, kind: str, index: int) -> dict:
+    """Remove an item; deleting a part also removes its heat loads and convection faces."""
+    out = clone(d)
+    item = out[kind].pop(index)
+    if kind == "parts":
+        name = item.get("name")
+        for ref_kind in ("heat_loads", "convection"):
+            out[ref_kind] = [it for it in out.get(ref_kind, []) if it.get("part") != name]
+    return out
+
+
+def snap(value: float, step: float) -> float:
+    """Round to the nearest multiple of ``step`` (no rounding when step <= 0)."""
+    if step <= 0:
+        return float(value)
+    return float(round(round(value / step) * step, 9))
+
+
+def set_box(d: dict, index: int, lower, upper, step: float = 0.0) -> dict:
+    """Give part ``index`` the box [lower, upper] (mm), corners snapped to ``step``.
+
+    A side that would shrink to nothing after snapping keeps one increment (or its old size)."""
+    out = clone(d)
+    part = out["parts"][index]
+    lo = [snap(v, step) for v in lower]
+    hi = [snap(v, step) for v in upper]
+    for a in range(3):
+        if hi[a] - lo[a] <= 0:
+            hi[a] = lo[a] + (step if step > 0 else max(part["size_mm"][a], 1e-3))
+    part["origin_mm"] = lo
+    part["size_mm"] = [float(round(hi[a] - lo[a], 9)) for a in range(3)]
+    return out
+
+
+def place_onto(d: dict, index: int, target: int, face: str) -> dict:
+    """Put part ``index`` against ``face`` of part ``target``, on its outside.
+
+    Along the face normal the part touches the face; across it the part keeps its position
+    if its footprint overlaps the face, otherwise it is centred on the face.
+    """
+    if face not in FACES:
+        raise ValueError(f"face must be one of {', '.join(FACES)}")
+    if index == target:
+        raise ValueError("a part cannot be placed onto itself")
+    out = clone(d)
+    p, t = out["parts"][index], out["parts"][target]
+    axis = "xyz".index(face[0])
+    o, s = list(p["origin_mm"]), p["size_mm"]
+    to, ts = t["origin_mm"], t["size_mm"]
+    o[axis] = to[axis] + ts[axis] if face[1] == "+" else to[axis] - s[axis]
+    for a in range(3):
+        if a == axis:
+            continue
+        overlaps = o[a] < to[a] + ts[a] and o[a] + s[a] > to[a]
+        if not overlaps:
+            o[a] = to[a] + (ts[a] - s[a]) / 2
+    p["origin_mm"] = [float(round(v, 9)) for v in o]
+    return out
+
+
+def item_label(d: dict, kind: str, index: int) -> str:
+    """Short text for lists: the name, or for heat loads the part and the profile in watts."""
+    it = d[kind][index]
+    if kind != "heat_loads":
+        return it.get("name", "?")
+    return f"{it.get('part', '?')}: {profile_summary(it.get('profile', {}), 'W')}"
+
+
+def profile_summary(p: dict, unit: str) -> str:
+    t = p.get("type")
+    if t == "constant":
+        return f"{p['value']:g} {unit}"
+    if t == "step":
+        return f"{p['value']:g} {unit} from {p.get('start_s', 0):g} s"
+    if t == "pulse":
+        return (f"{p['high']:g}/{p.get('low', 0):g} {unit} every {p['period_s']:g} s "
+                f"({p['duty'] * 100:g} % on)")
+    if t == "table":
+        return f"table of {len(p.get('points', []))} points"
+    return "?"

@@ -1,0 +1,316 @@
+"""One form per kind of item. Units: mm, W, °C, W/(m²·K), s.
+
+A form shows one item of the document's model and turns each confirmed field into an edit
+through :meth:`ItemForm.commit`, which builds the new model dict and hands it to the
+document; the document validates it and refuses it (with a message naming the field) when
+it would make the model invalid.
+"""
+from __future__ import annotations
+
+from PySide6.QtCore import Signal
+from PySide6.QtWidgets import QComboBox, QFormLayout, QLabel, QLineEdit, QPushButton, QVBoxLayout, QWidget
+
+from solver.model import MASS_KINDS, SCHEMES, SIDES
+
+from .. import edits
+from .fields import NumberField, Vec3Field
+from .material_picker import MaterialPicker
+from .profile_editor import ProfileEditor
+
+SIDE_LABELS = {"x-": "x− face", "x+": "x+ face", "y-": "y− face", "y+": "y+ face", "z-": "z− face (bottom)",
+               "z+": "z+ face (top)", "exposed": "every exposed face"}
+AXES = "xyz"
+
+
+class ItemForm(QWidget):
+    """Base: ``panel`` supplies ``document``, ``report(message)`` and the current index."""
+
+    kind = ""
+
+    def __init__(self, panel):
+        super().__init__()
+        self.panel = panel
+        self.index = -1
+        self.layout_ = QFormLayout(self)
+        self.layout_.setContentsMargins(6, 6, 6, 6)
+        self.layout_.setRowWrapPolicy(QFormLayout.DontWrapRows)
+
+    @property
+    def doc(self):
+        return self.panel.document
+
+    def item(self, d: dict) -> dict:
+        return d[self.kind][self.index]
+
+    def what(self) -> str:
+        d = self.doc.model_dict()
+        return f"{self.kind_word()} '{edits.item_label(d, self.kind, self.index)}'"
+
+    def kind_word(self) -> str:
+        return {"parts": "part", "heat_loads": "heat load", "convection": "convection face",
+                "probes": "probe"}.get(self.kind, self.kind)
+
+    def commit(self, path: tuple, value, label: str) -> bool:
+        """Set one value (``path`` inside the model dict) as one undoable edit."""
+        new = edits.set_value(self.doc.model_dict(), path, value)
+        sel = (self.kind, self.index)
+        return self.doc.try_edit(new, f"Set {label} of {self.what()}", self.panel.report, sel, sel)
+
+    def reject_text(self, label: str, text: str) -> None:
+        self.panel.report(f"{label} of {self.what()}: {text!r} is not a number; the model is unchanged.")
+        self.load()
+
+    def name_edit(self, on_commit) -> QLineEdit:
+        e = QLineEdit()
+        e.editingFinished.connect(lambda: on_commit(e))
+        return e
+
+    def rename(self, e: QLineEdit) -> None:
+        d = self.doc.model_dict()
+        old = self.item(d).get("name")
+        new = e.text().strip()
+        if new == old:
+            return
+        sel = (self.kind, self.index)
+        self.doc.try_edit(edits.rename_item(d, self.kind, self.index, new),
+                          f"Rename {self.kind_word()} '{old}' to '{new}'", self.panel.report, sel, sel)
+
+    def load(self) -> None:  # pragma: no cover - interface
+        raise NotImplementedError
+
+
+class PartForm(ItemForm):
+    kind = "parts"
+
+    def __init__(self, panel):
+        super().__init__(panel)
+        self.name = self.name_edit(self.rename)
+        self.material = MaterialPicker()
+        self.material.materialChosen.connect(lambda m: self.commit(("parts", self.index, "material"), m, "material"))
+        self.origin = Vec3Field("mm")
+        self.origin.committed.connect(lambda a, v: self.commit(("parts", self.index, "origin_mm", a), v,
+                                                               f"position {AXES[a]}"))
+        self.origin.rejected.connect(lambda a, t: self.reject_text(f"position {AXES[a]}", t))
+        self.size = Vec3Field("mm")
+        self.size.committed.connect(lambda a, v: self.commit(("parts", self.index, "size_mm", a), v,
+                                                             f"size {AXES[a]}"))
+        self.size.rejected.connect(lambda a, t: self.reject_text(f"size {AXES[a]}", t))
+        self.rated = NumberField("°C", optional=True, placeholder="no rating")
+        self.rated.committed.connect(lambda v: self.commit(("parts", self.index, "rated_c"), v, "rated temperature"))
+        self.rated.rejected.connect(lambda t: self.reject_text("rated temperature", t))
+        self.initial = NumberField("°C", optional=True, placeholder="model default")
+        self.initial.committed.connect(lambda v: self.commit(("parts", self.index, "initial_c"), v,
+                                                             "initial temperature"))
+        self.initial.rejected.connect(lambda t: self.reject_text("initial temperature", t))
+        self.place = QPushButton("Place onto a face of another part…")
+        self.place.clicked.connect(lambda: self.panel.placeRequested.emit())
+        L = self.layout_
+        L.addRow("Name", self.name)
+        L.addRow("Material", self.material)
+        L.addRow("Corner (min)", self.origin)
+        L.addRow("Size", self.size)
+        L.addRow("Rated at", self.rated)
+        L.addRow("Starts at", self.initial)
+        L.addRow("", self.place)
+        hint = QLabel("Corner = the box's lowest x, y, z. Leave \"Rated at\" empty for parts without a limit.")
+        hint.setWordWrap(True)
+        hint.setStyleSheet("color: #5a6472;")
+        L.addRow(hint)
+
+    def load(self):
+        d = self.doc.model_dict()
+        p = self.item(d)
+        self.name.setText(p["name"])
+        self.material.set_choices(self.doc.model, p["material"])
+        self.origin.set_values(p["origin_mm"])
+        self.size.set_values(p["size_mm"])
+        self.rated.set_value(p.get("rated_c"))
+        self.initial.set_value(p.get("initial_c"))
+
+
+def part_combo(on_pick) -> QComboBox:
+    c = QComboBox()
+    c.activated.connect(lambda i: on_pick(c.itemText(i)))
+    return c
+
+
+def fill_parts(combo: QComboBox, d: dict, current: str) -> None:
+    combo.blockSignals(True)
+    combo.clear()
+    combo.addItems([p["name"] for p in d["parts"]])
+    i = combo.findText(current)
+    if i < 0:
+        combo.addItem(current)
+        i = combo.count() - 1
+    combo.setCurrentIndex(i)
+    combo.blockSignals(False)
+
+
+class HeatLoadForm(ItemForm):
+    kind = "heat_loads"
+
+    def __init__(self, panel):
+        super().__init__(panel)
+        self.part = part_combo(lambda n: self.commit(("heat_loads", self.index, "part"), n, "part"))
+        self.profile = ProfileEditor("W")
+        self.profile.profileCommitted.connect(lambda p: self.commit(("heat_loads", self.index, "profile"), p,
+                                                                    "power profile"))
+        self.profile.rejected.connect(lambda msg: (self.panel.report(f"{self.what()}: {msg}; the model is "
+                                                                     "unchanged."), self.load()))
+        self.layout_.addRow("Heats part", self.part)
+        self.layout_.addRow("Power", self.profile)
+        hint = QLabel("The watts are spread evenly over the part's volume.")
+        hint.setStyleSheet("color: #5a6472;")
+        self.layout_.addRow(hint)
+
+    def load(self):
+        d = self.doc.model_dict()
+        it = self.item(d)
+        fill_parts(self.part, d, it["part"])
+        m = self.doc.model
+        self.profile.set_profile(it["profile"], m.heat_loads[self.index].profile, m.run.duration_s)
+
+
+class ConvectionForm(ItemForm):
+    kind = "convection"
+
+    def __init__(self, panel):
+        super().__init__(panel)
+        self.name = self.name_edit(self.rename)
+        self.part = part_combo(lambda n: self.commit(("convection", self.index, "part"), n, "part"))
+        self.side = QComboBox()
+        for s in SIDES:
+            self.side.addItem(SIDE_LABELS[s], s)
+        self.side.activated.connect(lambda i: self.commit(("convection", self.index, "side"),
+                                                          self.side.itemData(i), "face"))
+        self.h = NumberField("W/(m²·K)")
+        self.h.committed.connect(lambda v: self.commit(("convection", self.index, "h"), v, "film coefficient"))
+        self.h.rejected.connect(lambda t: self.reject_text("film coefficient", t))
+        self.air = QComboBox()
+        self.air.addItems(["the model's ambient", "its own temperature profile"])
+        self.air.activated.connect(self._air_mode)
+        self.profile = ProfileEditor("°C")
+        self.profile.profileCommitted.connect(lambda p: self.commit(("convection", self.index, "ambient_c"), p,
+                                                                    "surrounding temperature"))
+        self.profile.rejected.connect(lambda msg: (self.panel.report(f"{self.what()}: {msg}; the model is "
+                                                                     "unchanged."), self.load()))
+        L = self.layout_
+        L.addRow("Name", self.name)
+        L.addRow("On part", self.part)
+        L.addRow("Where", self.side)
+        L.addRow("Coefficient", self.h)
+        L.addRow("Surroundings", self.air)
+        L.addRow("", self.profile)
+        hint = QLabel("Typical coefficients: still air 5–10, fan-blown air 25–100 W/(m²·K) "
+                      "(common practice, no source). Only uncovered faces of the part exchange heat.")
+        hint.setWordWrap(True)
+        hint.setStyleSheet("color: #5a6472;")
+        L.addRow(hint)
+
+    def _air_mode(self, i):
+        if i == 0:
+            self.commit(("convection", self.index, "ambient_c"), None, "surroundings")
+        else:
+            amb = self.doc.model.ambient_c
+            self.commit(("convection", self.index, "ambient_c"), {"type": "constant", "value": amb}, "surroundings")
+
+    def load(self):
+        d = self.doc.model_dict()
+        it = self.item(d)
+        self.name.setText(it["name"])
+        fill_parts(self.part, d, it["part"])
+        self.side.setCurrentIndex(self.side.findData(it["side"]))
+        self.h.set_value(it["h"])
+        own = it.get("ambient_c") is not None
+        self.air.setCurrentIndex(1 if own else 0)
+        self.profile.setVisible(own)
+        if own:
+            m = self.doc.model
+            self.profile.set_profile(it["ambient_c"], m.convection[self.index].ambient_c, m.run.duration_s)
+
+
+class ProbeForm(ItemForm):
+    kind = "probes"
+
+    def __init__(self, panel):
+        super().__init__(panel)
+        self.name = self.name_edit(self.rename)
+        self.at = Vec3Field("mm")
+        self.at.committed.connect(lambda a, v: self.commit(("probes", self.index, "at_mm", a), v,
+                                                           f"position {AXES[a]}"))
+        self.at.rejected.connect(lambda a, t: self.reject_text(f"position {AXES[a]}", t))
+        self.layout_.addRow("Name", self.name)
+        self.layout_.addRow("At", self.at)
+        hint = QLabel("A probe records the temperature at one point over time.")
+        hint.setStyleSheet("color: #5a6472;")
+        self.layout_.addRow(hint)
+
+    def load(self):
+        it = self.item(self.doc.model_dict())
+        self.name.setText(it["name"])
+        self.at.set_values(it["at_mm"])
+
+
+class StudyForm(ItemForm):
+    """Title, default temperatures, mesh size and time stepping (the model's top-level fields)."""
+
+    kind = "study"
+    SCHEME_LABELS = {"backward-euler": "backward Euler (robust)", "crank-nicolson": "Crank–Nicolson (accurate)",
+                     "forward-euler": "forward Euler (explicit)"}
+
+    def __init__(self, panel):
+        super().__init__(panel)
+        self.title = QLineEdit()
+        self.title.editingFinished.connect(lambda: self.commit(("title",), self.title.text(), "title"))
+        L = self.layout_
+        L.addRow("Title", self.title)
+        self.numbers = {}
+        for path, label, unit, optional in [
+                (("ambient_c",), "Ambient", "°C", False), (("initial_c",), "Start temperature", "°C", False),
+                (("mesh", "cell_mm"), "Cell size", "mm", False), (("mesh", "min_layers"), "Cells across thinnest",
+                                                                  "cells", False),
+                (("run", "duration_s"), "Duration", "s", False), (("run", "step_s"), "Time step", "s", False),
+                (("run", "output_every_s"), "Save every", "s", True)]:
+            f = NumberField(unit, optional=optional, placeholder="about 100 outputs" if optional else "")
+            f.committed.connect(lambda v, p=path, lab=label: self.commit(p, self._typed(p, v), lab.lower()))
+            f.rejected.connect(lambda t, lab=label: self.reject_text(lab.lower(), t))
+            L.addRow(label, f)
+            self.numbers[path] = f
+        self.scheme = QComboBox()
+        for s in SCHEMES:
+            self.scheme.addItem(self.SCHEME_LABELS[s], s)
+        self.scheme.activated.connect(lambda i: self.commit(("run", "scheme"), self.scheme.itemData(i),
+                                                            "time scheme"))
+        self.mass = QComboBox()
+        for m in MASS_KINDS:
+            self.mass.addItem(m, m)
+        self.mass.activated.connect(lambda i: self.commit(("run", "mass"), self.mass.itemData(i), "capacity"))
+        L.addRow("Time scheme", self.scheme)
+        L.addRow("Heat capacity", self.mass)
+
+    @staticmethod
+    def _typed(path, v):
+        if path == ("mesh", "min_layers") and v is not None and float(v).is_integer():
+            return int(v)
+        return v
+
+    def what(self) -> str:
+        return "the study"
+
+    def load(self):
+        d = self.doc.model_dict()
+        self.title.setText(d.get("title", ""))
+        for path, f in self.numbers.items():
+            node = d
+            for k in path:
+                node = node.get(k) if isinstance(node, dict) else None
+            f.set_value(node)
+        self.scheme.setCurrentIndex(self.scheme.findData(d["run"]["scheme"]))
+        self.mass.setCurrentIndex(self.mass.findData(d["run"]["mass"]))
+
+    def commit(self, path, value, label):
+        d = self.doc.model_dict()
+        d.setdefault("mesh", {})
+        d.setdefault("run", {})
+        new = edits.set_value(d, path, value)
+        return self.doc.try_edit(new, f"Set {label} of the study", self.panel.report, ("study", 0), ("study", 0))

@@ -1,0 +1,347 @@
+"""The 3D view of the model's boxes: click to pick a part, drag handles to move or resize it.
+
+:class:`Viewport` wraps a pyvistaqt ``QtInteractor`` (``viewport.plotter``). In "edit" mode it
+draws one box per part (mm), outlines the selected part, and puts a handle frame on it; a
+finished drag is reported as ``boxEdited(name, lower_mm, upper_mm)`` with both corners snapped
+to ``snap_mm``. In "results" mode the boxes are hidden so the field can be drawn on the same
+plotter; outlines from :meth:`highlight_parts` show in both modes.
+
+Picking is a ray test against the visible parts' boxes (geometry only, no numerics): the ray
+through the clicked pixel meets boxes in depth order; clicking again on the same spot steps to
+the next box behind, so parts inside a housing can be reached.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pyvista as pv
+from PySide6.QtCore import Signal
+from PySide6.QtWidgets import QVBoxLayout, QWidget
+from pyvistaqt import QtInteractor
+from vtkmodules.vtkInteractionWidgets import vtkBoxWidget
+from vtkmodules.vtkCommonDataModel import vtkPolyData
+
+from .edits import snap
+
+# Visual language: muted fills by material family, an amber frame for the selection,
+# a thick crimson frame for parts marked by highlight_parts (for example "over rating").
+FAMILY_COLOURS = [
+    (("aluminium", "copper", "steel", "stainless"), "#9aa7b4"),
+    (("pcb", "fr4"), "#5f8f5a"),
+    (("mould", "potting", "epoxy"), "#3d3f45"),
+    (("silicon", "alumina"), "#6f7d99"),
+    (("pad",), "#d9916b"),
+    (("abs", "polycarbonate", "pa66"), "#d8c8a8"),
+    (("air",), "#bfe3ea"),
+]
+OTHER_COLOUR = "#b08fc7"
+SELECT_COLOUR = "#ffb000"
+MARK_COLOUR = "#d0103a"
+BACKGROUND_BOTTOM = "#e9edf2"
+BACKGROUND_TOP = "#ffffff"
+CLICK_SLOP_PX = 4
+
+
+def material_colour(material: str) -> str:
+    name = material.lower()
+    for keys, colour in FAMILY_COLOURS:
+        if any(k in name for k in keys):
+            return colour
+    return OTHER_COLOUR
+
+
+def ray_box_hits(origin, direction, lower, upper):
+    """Entry distance and entry face of a ray through each box (inf where it misses).
+
+    ``lower``/``upper``: (n, 3) corners. Returns (t_enter (n,), face (n,) as 'x-'...'z+')."""
+    origin = np.asarray(origin, float)
+    direction = np.asarray(direction, float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        inv = 1.0 / direction
+        t1 = (lower - origin) * inv
+        t2 = (upper - origin) * inv
+    t_near = np.where(np.isnan(t1), -np.inf, np.minimum(t1, t2))
+    t_far = np.where(np.isnan(t1), np.inf, np.maximum(t1, t2))
+    enter = t_near.max(axis=1)
+    leave = t_far.min(axis=1)
+    hit = (enter <= leave) & (leave >= 0)
+    axis = t_near.argmax(axis=1)
+    sign = np.where(direction[axis] > 0, "-", "+")
+    faces = np.array([f"{'xyz'[a]}{s}" for a, s in zip(axis, sign)]) if len(axis) else np.array([], str)
+    return np.where(hit, np.maximum(enter, 0.0), np.inf), faces
+
+
+class Viewport(QWidget):
+    """3D view of the model's parts. Signals: ``partClicked(name)`` ('' for empty space),
+    ``faceClicked(name, face)`` (every pick, with the face the ray entered),
+    ``boxEdited(name, lower_mm, upper_mm)`` after a handle drag (corners snapped)."""
+
+    partClicked = Signal(str)
+    faceClicked = Signal(str, str)
+    boxEdited = Signal(str, object, object)
+
+    def __init__(self, parent=None, auto_update: bool | float = False):
+        super().__init__(parent)
+        self.plotter = QtInteractor(self, auto_update=auto_update)
+        lay = QVBoxLayout(self)
+        lay.setContentsMargins(0, 0, 0, 0)
+        lay.addWidget(self.plotter.interactor)
+        self.plotter.set_background(BACKGROUND_BOTTOM, top=BACKGROUND_TOP)
+        self.plotter.add_axes(interactive=False, line_width=2, labels_off=False)
+        self.mode = "edit"
+        self.pick_mode = "select"  # "face": the next click reports a face of another part only
+        self.snap_mm = 1.0
+        self.handles_enabled = True
+        self.hidden_parts: set[str] = set()
+        self.see_through = False
+        self._parts: list[dict] = []  # name, material, origin_mm, size_mm
+        self._actors: dict[str, object] = {}
+        self._select_actor = None
+        self._mark_actors: list = []
+        self._marked: set[str] = set()
+        self._selected: str | None = None
+        self._caption = None
+        self._press = None
+        self._camera_set = False
+        self._box = vtkBoxWidget()
+        self._box.SetInteractor(self.plotter.iren.interactor)
+        self._box.SetCurrentRenderer(self.plotter.renderer)
+        self._box.SetPlaceFactor(1.0)
+        self._box.SetRotationEnabled(False)
+        self._box.SetHandleSize(0.006)
+        self._box.GetOutlineProperty().SetColor(pv.Color(SELECT_COLOUR).float_rgb)
+        self._box.GetOutlineProperty().SetLineWidth(2)
+        self._box.GetHandleProperty().SetColor(pv.Color(SELECT_COLOUR).float_rgb)
+        self._box.GetSelectedHandleProperty().SetColor(pv.Color(MARK_COLOUR).float_rgb)
+        self._box.GetFaceProperty().SetOpacity(0.0)
+        self._box.GetSelectedFaceProperty().SetOpacity(0.15)
+        self._box.AddObserver("EndInteractionEvent", self._on_box_released)
+        self.plotter.iren.add_observer("LeftButtonPressEvent", self._on_press)
+        self.plotter.iren.add_observer("LeftButtonReleaseEvent", self._on_release)
+
+    # ------------------------------------------------------------ drawing
+    def refresh(self) -> None:
+        """Schedule a redraw (cheaper than a synchronous render)."""
+        QWidget.update(self.plotter)
+
+    def show_model(self, model) -> None:
+        """Redraw all parts of ``model`` (a solver.model.Model), keeping camera and selection."""
+        self._parts = [{"name": p.name, "material": p.material, "origin_mm": list(p.origin_mm),
+                        "size_mm": list(p.size_mm)} for p in model.parts]
+        names = {p["name"] for p in self._parts}
+        for name in list(self._actors):
+            self.plotter.remove_actor(self._actors.pop(name), render=False)
+        for p in self._parts:
+            box = pv.Box(bounds=self._bounds(p))
+            actor = self.plotter.add_mesh(box, color=material_colour(p["material"]), show_edges=True,
+                                          edge_color="#2b2f36", line_width=1, smooth_shading=False,
+                                          name=f"part::{p['name']}", render=False, pickable=False)
+            self._actors[p["name"]] = actor
+        if self._selected not in names:
+            self._selected = None
+        self.hidden_parts &= names
+        self._marked &= names
+        self._apply_visibility()
+        self._update_selection_graphics()
+        self._update_marks()
+        if not self._camera_set and self._parts:
+            self.reset_camera()
+            self._camera_set = True
+        self.refresh()
+
+    @staticmethod
+    def _bounds(p) -> tuple:
+        o, s = p["origin_mm"], p["size_mm"]
+        return (o[0], o[0] + s[0], o[1], o[1] + s[1], o[2], o[2] + s[2])
+
+    def _part(self, name):
+        for p in self._parts:
+            if p["name"] == name:
+                return p
+        return None
+
+    def _apply_visibility(self) -> None:
+        editing = self.mode == "edit"
+        for name, actor in self._actors.items():
+            actor.SetVisibility(editing and name not in self.hidden_parts)
+            see_through = self.see_through and self._selected is not None and name != self._selected
+            actor.GetProperty().SetOpacity(0.25 if see_through else 1.0)
+
+    def _update_selection_graphics(self) -> None:
+        if self._select_actor is not None:
+            self.plotter.remove_actor(self._select_actor, render=False)
+            self._select_actor = None
+        p = self._part(self._selected) if self._selected else None
+        show_handles = p is not None and self.mode == "edit" and self.handles_enabled \
+            and self._selected not in self.hidden_parts
+        if p is not None and self.mode == "edit" and self._selected not in self.hidden_parts:
+            outline = pv.Box(bounds=self._bounds(p)).extract_feature_edges()
+            self._select_actor = self.plotter.add_mesh(outline, color=SELECT_COLOUR, line_width=4,
+                                                       name="selection::frame", render=False, pickable=False)
+        if show_handles:
+            self._box.PlaceWidget(self._bounds(p))
+            self._box.On()
+        else:
+            self._box.Off()
+        self._set_caption()
+
+    def _set_caption(self) -> None:
+        p = self._part(self._selected) if self._selected else None
+        if p is None or self.mode != "edit":
+            text = ""
+        else:
+            s = p["size_mm"]
+            text = f"{p['name']}   {s[0]:g} × {s[1]:g} × {s[2]:g} mm"
+            if self.handles_enabled:
+                text += f"   (handles snap to {self.snap_mm:g} mm)" if self.snap_mm > 0 else "   (no snapping)"
+        self._caption = self.plotter.add_text(text, position="upper_left", font_size=10, color="#1d2733",
+                                              name="selection::caption", render=False)
+
+    def _update_marks(self) -> None:
+        for a in self._mark_actors:
+            self.plotter.remove_actor(a, render=False)
+        self._mark_actors = []
+        for i, name in enumerate(sorted(self._marked)):
+            p = self._part(name)
+            if p is None:
+                continue
+            outline = pv.Box(bounds=self._bounds(p)).extract_feature_edges()
+            self._mark_actors.append(self.plotter.add_mesh(outline, color=MARK_COLOUR, line_width=6,
+                                                           name=f"mark::{i}", render=False, pickable=False))
+
+    # ------------------------------------------------------------ public API
+    def select_part(self, name: str | None) -> None:
+        """Show ``name`` as selected (None clears); does not emit ``partClicked``."""
+        self._selected = name if name and self._part(name) else None
+        self._apply_visibility()
+        self._update_selection_graphics()
+        self.refresh()
+
+    @property
+    def selected_part(self) -> str | None:
+        return self._selected
+
+    def set_mode(self, mode: str) -> None:
+        """"edit": boxes and handles shown; "results": boxes hidden (the field is drawn elsewhere)."""
+        if mode not in ("edit", "results"):
+            raise ValueError(f"unknown view mode {mode!r}")
+        self.mode = mode
+        self._apply_visibility()
+        self._update_selection_graphics()
+        self.refresh()
+
+    def highlight_parts(self, names) -> None:
+        """Frame the given parts in crimson (used for parts over their rating)."""
+        self._marked = {n for n in names if self._part(n)}
+        self._update_marks()
+        self.refresh()
+
+    def set_hidden_parts(self, names) -> None:
+        self.hidden_parts = set(names)
+        self._apply_visibility()
+        self._update_selection_graphics()
+        self.refresh()
+
+    def set_see_through(self, on: bool) -> None:
+        self.see_through = bool(on)
+        self._apply_visibility()
+        self.refresh()
+
+    def set_snap(self, mm: float) -> None:
+        self.snap_mm = max(0.0, float(mm))
+        self._set_caption()
+        self.refresh()
+
+    def set_handles_enabled(self, on: bool) -> None:
+        self.handles_enabled = bool(on)
+        self._update_selection_graphics()
+        self.refresh()
+
+    def reset_camera(self, direction: str = "iso") -> None:
+        """Look at all parts from ``direction``: "iso", "top", "front" or "side"."""
+        {"iso": self.plotter.view_isometric, "top": self.plotter.view_xy, "front": self.plotter.view_xz,
+         "side": self.plotter.view_yz}[direction](render=False)
+        self.plotter.reset_camera(render=False)
+        self.refresh()
+
+    def screen_position(self, point_mm) -> tuple[int, int]:
+        """Widget pixel (x from the left, y from the top) where a 3D point (mm) is drawn."""
+        ren = self.plotter.renderer
+        ren.SetWorldPoint(*point_mm, 1.0)
+        ren.WorldToDisplay()
+        x, y, _ = ren.GetDisplayPoint()
+        ratio = self.plotter.devicePixelRatioF()
+        return int(round(x / ratio)), int(round(self.plotter.height() - y / ratio))
+
+    # ------------------------------------------------------------ picking
+    def parts_under(self, x: float, y: float) -> list[tuple[str, str]]:
+        """Visible parts on the ray through display pixel (x, y) (VTK display coordinates,
+        origin bottom-left), nearest first, each with the face the ray enters."""
+        visible = [p for p in self._parts if p["name"] not in self.hidden_parts]
+        if not visible or self.mode != "edit":
+            return []
+        ren = self.plotter.renderer
+        ends = []
+        for z in (0.0, 1.0):
+            ren.SetDisplayPoint(x, y, z)
+            ren.DisplayToWorld()
+            w = ren.GetWorldPoint()
+            ends.append(np.array(w[:3]) / w[3])
+        lower = np.array([p["origin_mm"] for p in visible], float)
+        upper = lower + np.array([p["size_mm"] for p in visible], float)
+        t, faces = ray_box_hits(ends[0], ends[1] - ends[0], lower, upper)
+        order = [i for i in np.argsort(t, kind="stable") if np.isfinite(t[i])]
+        return [(visible[i]["name"], str(faces[i])) for i in order]
+
+    def pick_at(self, x: float, y: float) -> str:
+        """Handle a click at display pixel (x, y) (VTK coordinates, origin bottom-left).
+
+        In "select" mode: pick the nearest part on the ray, or the one behind the current
+        selection when the same spot is clicked again; emits ``faceClicked`` and ``partClicked``.
+        In "face" mode: emit only ``faceClicked`` for the nearest part other than the selected one."""
+        hits = self.parts_under(x, y)
+        if self.pick_mode == "face":
+            hits = [h for h in hits if h[0] != self._selected]
+            if hits:
+                self.faceClicked.emit(*hits[0])
+                return hits[0][0]
+            return ""
+        names = [n for n, _ in hits]
+        if not names:
+            self.partClicked.emit("")
+            return ""
+        i = 0
+        if self._selected in names:
+            i = (names.index(self._selected) + 1) % len(names)
+        name, face = hits[i]
+        self.faceClicked.emit(name, face)
+        self.partClicked.emit(name)
+        return name
+
+    def _on_press(self, *_args):
+        self._press = self.plotter.iren.interactor.GetEventPosition()
+
+    def _on_release(self, *_args):
+        if self._press is None:
+            return
+        x, y = self.plotter.iren.interactor.GetEventPosition()
+        px, py = self._press
+        self._press = None
+        if abs(x - px) <= CLICK_SLOP_PX and abs(y - py) <= CLICK_SLOP_PX:
+            self.pick_at(x, y)
+
+    def _on_box_released(self, widget, _event):
+        if self._selected is None:
+            return
+        poly = vtkPolyData()
+        widget.GetPolyData(poly)
+        b = poly.GetBounds()
+        lower = [snap(b[0], self.snap_mm), snap(b[2], self.snap_mm), snap(b[4], self.snap_mm)]
+        upper = [snap(b[1], self.snap_mm), snap(b[3], self.snap_mm), snap(b[5], self.snap_mm)]
+        self._press = None  # a handle drag is not a click
+        self.boxEdited.emit(self._selected, lower, upper)
+
+    def close_plotter(self) -> None:
+        """Release the render window (call before the window closes)."""
+        self._box.Off()
+        self._box.SetInteractor(None)
+        self.plotter.close()
