@@ -1,0 +1,178 @@
+"""Qt-free results logic: the store filled live vs. reopened from disk, frame lookup, colour range,
+over-rating sets, the exported peak table vs. ``thermgui solve``, time formatting, error paths.
+
+The references here are the engine's own files written by the command line (``peaks.csv``,
+``history.csv``, the .vtu frames) and direct numpy reductions of the stored frames.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from solver.cli import solve_to_folder
+from solver.errors import ModelError
+from solver.model import parse_model, save_model
+from solver.runfolder import load_run
+from solver.session import RunSession
+from thermgui.runresults.messages import describe_error, item_for_path
+from thermgui.runresults.runpanel import remaining_seconds
+from thermgui.runresults.store import ResultsStore, peaks_tsv, results_folder_for
+from thermgui.runresults.timefmt import format_duration, format_time, time_unit
+
+
+def chip_on_plate(**run) -> dict:
+    """Invented scenario: a 1.5 W package on an aluminium plate cooled from below, rated 40 °C."""
+    r = {"duration_s": 60.0, "step_s": 2.0, "scheme": "backward-euler", "mass": "lumped", "output_every_s": 10.0}
+    r.update(run)
+    return {
+        "format": "thermgui-model", "version": 1, "title": "chip on plate (test scenario)",
+        "ambient_c": 25.0, "initial_c": 25.0,
+        "parts": [
+            {"name": "plate", "material": "aluminium-6061", "origin_mm": [0, 0, 0], "size_mm": [40, 30, 3],
+             "rated_c": 100.0},
+            {"name": "chip", "material": "mould-compound", "origin_mm": [15, 10, 3], "size_mm": [10, 10, 2],
+             "rated_c": 40.0},
+            {"name": "foot", "material": "aluminium-6061", "origin_mm": [0, 0, -4], "size_mm": [6, 6, 4]},
+        ],
+        "heat_loads": [{"part": "chip", "profile": {"type": "constant", "value": 1.5}}],
+        "convection": [{"name": "underside", "part": "plate", "side": "z-", "h": 10.0},
+                       {"name": "top", "part": "plate", "side": "z+", "h": 6.0}],
+        "mesh": {"cell_mm": 3.0, "min_layers": 2},
+        "run": r,
+    }
+
+
+@pytest.fixture(scope="module")
+def solved(tmp_path_factory):
+    """The same model solved by the command line (folder) and streamed into a live store."""
+    base = tmp_path_factory.mktemp("store")
+    model = parse_model(chip_on_plate())
+    model_path = base / "chip.json"
+    save_model(model, model_path)
+    assert solve_to_folder(model_path, base / "cli", quiet=True) == 0
+    session = RunSession(model, base / "live")
+    live = ResultsStore.for_problem(session.problem, base / "live")
+    for ev in session.events():
+        if ev.is_output:
+            live.add_frame(ev.time_s, ev.field, ev.part_max)
+    live.set_peak_rows(session.finish())
+    return {"base": base, "live": live, "cli": base / "cli", "model": model}
+
+
+def test_live_store_matches_cli_files(solved):
+    live = solved["live"]
+    run = load_run(solved["cli"])
+    assert np.allclose(live.times, run.times)
+    assert live.times == [0.0, 10.0, 20.0, 30.0, 40.0, 50.0, 60.0]
+    for i in range(live.n_frames):
+        assert np.allclose(live.frame(i), run.field(i), atol=1e-4)
+    # peak table text is byte-identical to peaks.csv written by `thermgui solve`
+    assert live.peaks_csv_text().encode() == (solved["cli"] / "peaks.csv").read_bytes()
+
+
+def test_reopened_store_equals_live(solved):
+    live = solved["live"]
+    reopened = ResultsStore.from_finished(load_run(solved["cli"]))
+    assert reopened.part_names == live.part_names
+    assert np.array_equal(np.isnan(reopened.rated_c), np.isnan(live.rated_c))
+    assert np.allclose(reopened.points_mm, live.points_mm)
+    assert np.array_equal(reopened.tets, live.tets)
+    for i in range(live.n_frames):
+        assert np.allclose(reopened.frame(i), live.frame(i), atol=1e-4)
+    # part maxima from history.csv (4 decimals) agree with the frames' own maxima per part
+    _, pm = reopened.history()
+    assert np.allclose(pm, np.array(live.part_max), atol=1e-3)
+    assert reopened.peaks_csv_text() == live.peaks_csv_text()
+    assert reopened.complete and reopened.folder == solved["cli"]
+
+
+def test_part_max_recomputed_from_frame_matches_engine(solved):
+    live = solved["live"]
+    i = live.n_frames - 1
+    assert np.allclose(live._part_max_of(live.frame(i)), live.part_max[i], atol=1e-4)
+
+
+def test_colour_range_is_global_unless_per_frame(solved):
+    live = solved["live"]
+    frames = np.array(live.frames)
+    lo, hi = live.colour_range(2)
+    assert lo == pytest.approx(frames.min()) and hi == pytest.approx(frames.max())
+    assert live.colour_range(5) == (lo, hi)  # fixed across time
+    lo2, hi2 = live.colour_range(2, per_frame=True)
+    assert lo2 == pytest.approx(frames[2].min()) and hi2 == pytest.approx(frames[2].max())
+    assert hi2 < hi  # still heating, so an earlier frame tops out lower
+    # the initial frame is uniform: the range is widened so a colour scale can be drawn
+    lo0, hi0 = live.colour_range(0, per_frame=True)
+    assert hi0 - lo0 == pytest.approx(1.0)
+
+
+def test_over_rating_sets(solved):
+    live = solved["live"]
+    assert live.over_at(0) == set()  # everything starts at 25 °C
+    last = live.n_frames - 1
+    chip = live.part_names.index("chip")
+    assert live.part_max[last][chip] > 40.0, "scenario must overload the chip"
+    assert live.over_at(last) == {"chip"}
+    assert live.ever_over() == {"chip"}
+    # the finished table says the same
+    rows = {r[0]: r for r in live.peak_rows}
+    assert rows["chip"][-1] == "over" and rows["plate"][-1] == "ok" and rows["foot"][-1] == "unrated"
+    assert live.rated_parts() == ["plate", "chip"]
+    assert live.rating("foot") is None and live.rating("chip") == 40.0
+
+
+def test_index_at_picks_nearest_output(solved):
+    live = solved["live"]
+    assert live.index_at(0.0) == 0
+    assert live.index_at(14.0) == 1
+    assert live.index_at(16.0) == 2
+    assert live.index_at(1e6) == live.n_frames - 1
+
+
+def test_tsv_has_header_and_rows(solved):
+    live = solved["live"]
+    lines = peaks_tsv(live.peak_rows).splitlines()
+    assert lines[0].split("\t")[:3] == ["part", "rated_c", "peak_c"]
+    assert len(lines) == 1 + len(live.part_names)
+    assert all(len(l.split("\t")) == 10 for l in lines)
+
+
+def test_results_folder_beside_model(tmp_path):
+    assert results_folder_for(tmp_path / "box.json") == tmp_path / "box.results"
+
+
+def test_time_formatting():
+    assert time_unit(60) == ("s", 1.0)
+    assert time_unit(1800) == ("min", 60.0)
+    assert time_unit(4 * 3600) == ("h", 3600.0)
+    assert format_time(30, 60) == "30 s"
+    assert format_time(2.5) == "2.5 s"
+    assert format_time(90, 1800) == "1.5 min"
+    assert format_time(5400, 4 * 3600) == "1.5 h"
+    assert format_duration(5) == "5 s"
+    assert format_duration(200) == "3 min 20 s"
+    assert format_duration(3900) == "1 h 05 min"
+    assert format_duration(float("nan")) == "–"
+
+
+def test_remaining_time_estimate():
+    assert remaining_seconds(0, 100, 0.0) is None
+    assert remaining_seconds(25, 100, 10.0) == pytest.approx(30.0)
+    assert remaining_seconds(100, 100, 40.0) == 0.0
+
+
+def test_error_paths_point_at_items():
+    assert item_for_path("parts[3].size_mm[2]") == ("parts", 3)
+    assert item_for_path("heat_loads[0].profile.value") == ("heat_loads", 0)
+    assert item_for_path("run.step_s") == ("study", 0)
+    assert item_for_path("") is None
+    head, detail = describe_error(ModelError(("run.step_s", "too long")))
+    assert "cannot be run" in head and detail == "run.step_s: too long"
+
+
+def test_engine_refusal_is_a_model_error_naming_the_step():
+    model = parse_model(chip_on_plate(scheme="forward-euler", step_s=5.0))
+    with pytest.raises(ModelError) as err:
+        RunSession(model, None)
+    assert err.value.first_path == "run.step_s"
+    assert item_for_path(err.value.first_path) == ("study", 0)

@@ -1,0 +1,76 @@
+"""Part maxima (°C) against time, with ratings as dashed limit lines and a time cursor."""
+from __future__ import annotations
+
+import numpy as np
+import pyqtgraph as pg
+from PySide6.QtCore import Qt, Signal
+
+from .timefmt import time_unit
+
+# Distinguishable line colours (our own pick), cycled over the shown parts.
+LINE_COLOURS = ["#1f5fa8", "#c4512b", "#2c8a4b", "#8a3fa0", "#b08900", "#2a8f9e", "#7a4b2a", "#5c6770"]
+CURSOR_COLOUR = "#444444"
+
+
+class PartChart(pg.PlotWidget):
+    """Signal ``timeClicked(float seconds)`` when the user clicks in the plot."""
+
+    timeClicked = Signal(float)
+
+    def __init__(self, parent=None):
+        super().__init__(parent, background="w")
+        self.plotItem.showGrid(x=True, y=True, alpha=0.25)
+        self.plotItem.setLabel("left", "Part maximum", units="°C")
+        self.plotItem.getAxis("left").enableAutoSIPrefix(False)
+        self.plotItem.getAxis("bottom").enableAutoSIPrefix(False)
+        self.legend = self.plotItem.addLegend(offset=(-10, 10), labelTextSize="8pt")
+        self.cursor = pg.InfiniteLine(angle=90, movable=False, pen=pg.mkPen(CURSOR_COLOUR, width=1.5))
+        self.plotItem.addItem(self.cursor, ignoreBounds=True)
+        self.setMouseEnabled(x=False, y=False)
+        self.scene().sigMouseClicked.connect(self._on_click)
+        self.curves: dict[str, pg.PlotDataItem] = {}
+        self.limits: dict[str, pg.InfiniteLine] = {}
+        self._unit = ("s", 1.0)
+
+    def show_parts(self, names, times, part_max, part_names, ratings) -> None:
+        """Curves for ``names``: ``times`` (T,) s, ``part_max`` (T, P) °C; ``ratings`` name → °C or None."""
+        self.plotItem.clear()
+        self.legend.clear()
+        self.plotItem.addItem(self.cursor, ignoreBounds=True)
+        self.curves, self.limits = {}, {}
+        span = float(times[-1]) if len(times) else 0.0
+        self._unit = time_unit(span)
+        self.plotItem.setLabel("bottom", "Time", units=self._unit[0])
+        t = np.asarray(times, float) / self._unit[1]
+        for k, name in enumerate(names):
+            colour = LINE_COLOURS[k % len(LINE_COLOURS)]
+            j = part_names.index(name)
+            y = part_max[:, j] if len(times) else np.zeros(0)
+            self.curves[name] = self.plotItem.plot(t, y, pen=pg.mkPen(colour, width=2), name=name,
+                                                   symbol="o" if len(t) < 40 else None, symbolSize=4,
+                                                   symbolBrush=colour, symbolPen=None)
+            r = ratings.get(name)
+            if r is not None:
+                line = pg.InfiniteLine(pos=r, angle=0, movable=False,
+                                       pen=pg.mkPen(colour, width=1.5, style=Qt.DashLine),
+                                       label=f"{name} limit {r:g} °C",
+                                       labelOpts={"position": 0.05, "color": colour, "anchors": [(0, 1), (0, 1)]})
+                self.plotItem.addItem(line)
+                self.limits[name] = line
+        self.plotItem.enableAutoRange()
+
+    def set_cursor(self, time_s: float) -> None:
+        self.cursor.setPos(time_s / self._unit[1])
+
+    def cursor_time(self) -> float:
+        return float(self.cursor.value()) * self._unit[1]
+
+    def time_at_scene(self, scene_pos) -> float:
+        return float(self.plotItem.vb.mapSceneToView(scene_pos).x()) * self._unit[1]
+
+    def _on_click(self, event) -> None:
+        if event.button() != Qt.LeftButton:
+            return
+        if not self.plotItem.vb.sceneBoundingRect().contains(event.scenePos()):
+            return
+        self.timeClicked.emit(self.time_at_scene(event.scenePos()))

@@ -1,0 +1,471 @@
+"""Run and results, wired into the main window: actions, docks, worker thread and the 3D field.
+
+:class:`ResultsController` is created by :func:`thermgui.runresults.install`. It reads the model
+from ``window.document``, runs it with :class:`~thermgui.runresults.worker.RunWorker` on a thread,
+fills a :class:`~thermgui.runresults.store.ResultsStore` and presents it: field on
+``window.viewport.plotter``, time slider, chart, peak table, marks on over-rated parts.
+"""
+from __future__ import annotations
+
+import shutil
+import tempfile
+from pathlib import Path
+
+from PySide6.QtCore import QEvent, QObject, Qt, QTimer
+from PySide6.QtGui import QAction, QKeySequence
+from PySide6.QtWidgets import (QCheckBox, QComboBox, QFileDialog, QHBoxLayout, QLabel, QSlider, QSplitter,
+                               QStyle, QVBoxLayout, QWidget)
+
+from solver.errors import ModelError
+from solver.runfolder import is_run_folder, load_run
+
+from .chart import PartChart
+from .fieldview import FieldView
+from .messages import describe_error, item_for_path
+from .peaktable import PeakTable
+from .runpanel import CAUTION_TEXT, RunStatus
+from .store import ResultsStore, results_folder_for
+from .timefmt import format_time
+from .timeline import TimelineBar
+from .worker import RunWorker, start_worker
+
+LIVE_REDRAW_MS = 300  # at most ~3 redraws a second while a run streams frames
+CUT_CHOICES = [("Whole model", None), ("Cut across x", "x"), ("Cut across y", "y"), ("Cut across z", "z")]
+
+
+class ResultsController(QObject):
+    def __init__(self, window):
+        super().__init__(window)
+        self.window = window
+        self.store: ResultsStore | None = None
+        self.worker: RunWorker | None = None
+        self.thread = None
+        self.results_shown = False
+        self.stale = False
+        self._live = None  # (time_s, field) newest preview between outputs
+        self._chart_parts: list[str] | None = None  # None: default choice
+        self.view = FieldView(window.viewport.plotter)
+        self._build_widgets()
+        self._build_actions()
+        self._redraw = QTimer(self)
+        self._redraw.setSingleShot(True)
+        self._redraw.setInterval(LIVE_REDRAW_MS)
+        self._redraw.timeout.connect(self._live_refresh)
+        doc = window.document
+        if hasattr(doc, "changed"):
+            doc.changed.connect(self._on_model_changed)
+        tree = getattr(window, "item_tree", None)
+        if tree is not None and hasattr(tree, "itemChosen"):
+            tree.itemChosen.connect(self._on_tree_choice)
+        window.installEventFilter(self)
+
+    # ------------------------------------------------------------ construction
+    def _build_widgets(self) -> None:
+        w = self.window
+        self.status = RunStatus()
+        self.timeline = TimelineBar()
+        self.rescale_box = QCheckBox("Rescale colours to each frame")
+        self.rescale_box.setToolTip("Off: one colour scale over the whole run, so frames compare")
+        self.cut_choice = QComboBox()
+        for label, _ in CUT_CHOICES:
+            self.cut_choice.addItem(label)
+        self.cut_choice.setToolTip("Remove the cells beyond a plane to look inside")
+        self.cut_slider = QSlider(Qt.Horizontal)
+        self.cut_slider.setRange(5, 100)
+        self.cut_slider.setValue(50)
+        self.cut_slider.setEnabled(False)
+        self.cut_slider.setToolTip("Position of the cut plane (share of the extent kept)")
+        self.cut_slider.setMaximumWidth(160)
+        options = QHBoxLayout()
+        options.addWidget(self.rescale_box)
+        options.addSpacing(16)
+        options.addWidget(QLabel("Look inside:"))
+        options.addWidget(self.cut_choice)
+        options.addWidget(self.cut_slider)
+        options.addStretch(1)
+        run_box = QWidget()
+        lay = QVBoxLayout(run_box)
+        lay.setContentsMargins(6, 4, 6, 4)
+        lay.addWidget(self.status)
+        lay.addWidget(self.timeline)
+        lay.addLayout(options)
+        lay.addWidget(self.status.caution)
+        self.chart = PartChart()
+        self.chart.setMinimumHeight(150)
+        self.table = PeakTable()
+        split = QSplitter(Qt.Horizontal)
+        split.addWidget(self.chart)
+        split.addWidget(self.table)
+        split.setStretchFactor(0, 1)
+        split.setStretchFactor(1, 1)
+        self.run_dock = w.add_dock(run_box, Qt.BottomDockWidgetArea, "Run and time")
+        self.results_dock = w.add_dock(split, Qt.BottomDockWidgetArea, "Temperatures and peaks")
+        self.timeline.indexChanged.connect(self.show_index)
+        self.rescale_box.toggled.connect(lambda _: self.show_index(self.timeline.index))
+        self.cut_choice.currentIndexChanged.connect(self._on_cut)
+        self.cut_slider.sliderReleased.connect(self._on_cut)
+        self.cut_slider.valueChanged.connect(lambda _: None if self.cut_slider.isSliderDown() else self._on_cut())
+        self.chart.timeClicked.connect(self._on_chart_click)
+        self.table.exportRequested.connect(self._ask_export)
+        self.table.partsSelected.connect(self._on_table_parts)
+
+    def _build_actions(self) -> None:
+        w = self.window
+        st = w.style()
+        menu = w.menus["run"]
+        self.run_action = QAction(st.standardIcon(QStyle.SP_MediaPlay), "&Run", w)
+        self.run_action.setShortcut(QKeySequence("F5"))
+        self.run_action.setToolTip("Solve the model and show the temperatures as they are computed (F5)")
+        self.stop_action = QAction(st.standardIcon(QStyle.SP_MediaStop), "&Stop", w)
+        self.stop_action.setShortcut(QKeySequence("Shift+F5"))
+        self.stop_action.setToolTip("Stop the run after the current step (Shift+F5)")
+        self.stop_action.setEnabled(False)
+        self.show_action = QAction("Show &Results in View", w)
+        self.show_action.setCheckable(True)
+        self.show_action.setShortcut(QKeySequence("F6"))
+        self.show_action.setEnabled(False)
+        self.open_action = QAction("&Open Results Folder…", w)
+        self.export_action = QAction("&Export Peak Table…", w)
+        self.export_action.setEnabled(False)
+        self.picture_action = QAction("Save View as &Picture…", w)
+        self.picture_action.setShortcut(QKeySequence("Ctrl+Shift+P"))
+        for a in (self.run_action, self.stop_action, self.show_action):
+            menu.addAction(a)
+        menu.addSeparator()
+        for a in (self.open_action, self.export_action, self.picture_action):
+            menu.addAction(a)
+        w.toolbar.addSeparator()
+        w.toolbar.addAction(self.run_action)
+        w.toolbar.addAction(self.stop_action)
+        self.run_action.triggered.connect(self.start_run)
+        self.stop_action.triggered.connect(self.stop_run)
+        self.show_action.toggled.connect(self.set_results_shown)
+        self.open_action.triggered.connect(self._ask_open)
+        self.export_action.triggered.connect(self._ask_export)
+        self.picture_action.triggered.connect(self._ask_picture)
+
+    # ------------------------------------------------------------ running
+    @property
+    def running(self) -> bool:
+        return self.thread is not None
+
+    def results_folder(self) -> Path:
+        """``<model stem>.results`` beside the model file, or a fresh temporary folder if unsaved."""
+        path = getattr(self.window.document, "path", None)
+        if path:
+            return results_folder_for(path)
+        return Path(tempfile.mkdtemp(prefix="thermgui-run-")) / "untitled.results"
+
+    def start_run(self) -> bool:
+        """Start solving the document's model on a worker thread; False if it could not start."""
+        if self.running:
+            return False
+        model = self.window.document.model
+        out_dir = self.results_folder()
+        try:
+            _clear_old_results(out_dir)
+        except OSError as e:
+            self.status.show_error("The results folder cannot be prepared.", f"{out_dir}: {e.strerror or e}")
+            return False
+        self.status.clear_error()
+        self.status.preparing("Meshing and assembling the model…")
+        self.worker = RunWorker(model.model_copy(deep=True), out_dir)
+        self.worker.prepared.connect(self._on_prepared)
+        self.worker.output.connect(self._on_output)
+        self.worker.preview.connect(self._on_preview)
+        self.worker.progress.connect(self.status.progress)
+        self.worker.succeeded.connect(self._on_succeeded)
+        self.worker.failed.connect(self._on_failed)
+        self.worker.stopped.connect(self._on_stopped)
+        self.thread = start_worker(self.worker)
+        self.thread.finished.connect(self._on_thread_finished)
+        self.run_action.setEnabled(False)
+        self.stop_action.setEnabled(True)
+        return True
+
+    def stop_run(self) -> None:
+        if self.worker is not None:
+            self.worker.request_stop()
+            self.status.detail.setText("Stopping after the current step…")
+
+    def wait(self, timeout_ms: int = 60000) -> bool:
+        """Block until the worker thread has ended (for shutdown and tests)."""
+        if self.thread is None:
+            return True
+        return self.thread.wait(timeout_ms)
+
+    def shutdown(self) -> None:
+        """Stop a run in progress and wait for its thread (call before the window goes)."""
+        if self.running:
+            self.stop_run()
+            self.wait()
+            self._on_thread_finished()
+
+    def _on_prepared(self, session) -> None:
+        self.store = ResultsStore.for_problem(session.problem, session.out_dir)
+        self._live = None
+        self.stale = False
+        self.view.set_geometry(self.store.points_mm, self.store.tets)
+        self.status.started(session.describe(), self.store.duration_s)
+        for warning in session.warnings:
+            self._status_bar(f"Warning: {warning}")
+        self.table.set_rows(None)
+        self.export_action.setEnabled(False)
+        self.timeline.set_times([], self.store.duration_s)
+        self.show_action.setEnabled(True)
+        self.set_results_shown(True)
+
+    def _on_output(self, time_s, field, part_max) -> None:
+        if self.store is None:
+            return
+        self.store.add_frame(time_s, field, part_max)
+        self._live = None
+        self._schedule_live()
+
+    def _on_preview(self, time_s, field) -> None:
+        self._live = (time_s, field)
+        self._schedule_live()
+
+    def _schedule_live(self) -> None:
+        if not self._redraw.isActive():
+            self._redraw.start()
+
+    def _live_refresh(self) -> None:
+        """Bring slider, chart and view up to date with the frames streamed so far."""
+        s = self.store
+        if s is None or not s.n_frames:
+            return
+        following = self.timeline.index >= s.n_frames - 2 or not self.timeline.isEnabled()
+        self.timeline.blockSignals(True)
+        self.timeline.set_times(s.times, s.duration_s)
+        self.timeline.blockSignals(False)
+        self._update_chart()
+        if following and self._live is not None and self._live[0] > s.times[-1]:
+            t, f = self._live
+            lo, hi = s.colour_range(None, False)
+            self.view.show_field(f, (min(lo, float(f.min())), max(hi, float(f.max()))))
+            self.view.set_caption(f"t = {format_time(t, s.duration_s)} (computing)")
+            self.chart.set_cursor(t)
+        else:
+            self.show_index(self.timeline.index)
+
+    def _on_succeeded(self, rows) -> None:
+        s = self.store
+        s.set_peak_rows(rows)
+        self._live = None
+        self._live_refresh()
+        self.table.set_rows(s.peak_rows)
+        self.export_action.setEnabled(True)
+        over = s.ever_over()
+        note = f"; over rating: {', '.join(sorted(over))}" if over else "; no part over its rating"
+        self.status.finished(f"Finished: {s.n_frames} outputs in {s.folder}{note}")
+        self.show_index(self.timeline.index)
+
+    def _on_failed(self, headline: str, details: str, issues) -> None:
+        self.status.show_error(headline, details)
+        self._status_bar(headline)
+        if issues:
+            target = item_for_path(issues[0][0])
+            tree = getattr(self.window, "item_tree", None)
+            if target is not None and tree is not None and hasattr(tree, "select"):
+                tree.select(*target)
+
+    def _on_stopped(self, text: str) -> None:
+        self._live = None
+        if self.store is not None and self.store.n_frames:
+            self._live_refresh()
+        self.status.stopped(f"Stopped ({text}). The outputs computed so far can be scrubbed; "
+                            "no peak table was written.")
+
+    def _on_thread_finished(self) -> None:
+        if self.thread is None:
+            return
+        self.thread.wait()
+        self.worker.deleteLater()
+        self.thread.deleteLater()
+        self.worker = self.thread = None
+        self.run_action.setEnabled(True)
+        self.stop_action.setEnabled(False)
+
+    # ------------------------------------------------------------ finished runs
+    def open_results(self, folder):
+        """Show a finished run from its folder without solving; returns the FinishedRun (None on error)."""
+        if self.running:
+            self._status_bar("A run is in progress; stop it before opening other results.")
+            return None
+        try:
+            run = load_run(folder)
+            store = ResultsStore.from_finished(run)
+        except ModelError as e:
+            self.status.show_error("These results cannot be opened.", e.describe())
+            return None
+        except (OSError, ValueError, KeyError, IndexError) as e:
+            self.status.show_error("These results cannot be opened.", f"{folder}: damaged or incomplete ({e})")
+            return None
+        self.store = store
+        self.stale = False
+        self.status.clear_error()
+        self.view.set_geometry(store.points_mm, store.tets)
+        self.table.set_rows(store.peak_rows)
+        self.export_action.setEnabled(True)
+        self.status.started(f"Results of {Path(folder).name}", store.duration_s)
+        self.status.finished(f"Opened {store.n_frames} outputs from {folder} (not solved again)")
+        self.timeline.blockSignals(True)
+        self.timeline.set_times(store.times, store.duration_s)
+        self.timeline.blockSignals(False)
+        self._update_chart()
+        self.show_action.setEnabled(True)
+        self.set_results_shown(True)
+        self.timeline.set_index(store.n_frames - 1)
+        return run
+
+    # ------------------------------------------------------------ presenting
+    def set_results_shown(self, on: bool) -> None:
+        """Switch the 3D view between the model's boxes and the temperature field."""
+        on = bool(on) and self.store is not None
+        self.results_shown = on
+        self.show_action.blockSignals(True)
+        self.show_action.setChecked(on)
+        self.show_action.blockSignals(False)
+        vp = self.window.viewport
+        vp.set_mode("results" if on else "edit")
+        self.view.set_visible(on)
+        if on and self.store is not None and self.store.n_frames:
+            self.show_index(self.timeline.index)
+        elif not on:
+            self._mark(set())
+
+    def show_index(self, i: int) -> None:
+        """Draw output ``i``: field, colour range, time, parts over their rating, chart cursor."""
+        s = self.store
+        if s is None or not s.n_frames or not self.results_shown:
+            return
+        i = max(0, min(i, s.n_frames - 1))
+        clim = s.colour_range(i, self.rescale_box.isChecked())
+        self.view.show_field(s.frame(i), clim)
+        t = s.times[i]
+        self.view.set_caption(f"t = {format_time(t, s.duration_s)}" + ("   (model changed since)" if self.stale else ""))
+        over = s.over_at(i)
+        self._mark(over)
+        self.chart.set_cursor(t)
+
+    def _mark(self, over: set) -> None:
+        s = self.store
+        w = self.window
+        if hasattr(w.viewport, "highlight_parts"):
+            w.viewport.highlight_parts(set(over))
+        tree = getattr(w, "item_tree", None)
+        if tree is not None and hasattr(tree, "mark_parts"):
+            tree.mark_parts(set(over))
+        if over and s is not None:
+            i = self.timeline.index
+            bits = [f"{n} {s.part_max[i][s.part_names.index(n)]:.1f} °C > {s.rating(n):g} °C" for n in sorted(over)]
+            self.view.set_over_caption("OVER RATING: " + "; ".join(bits))
+        else:
+            self.view.set_over_caption("")
+        self.view.repaint()
+
+    def shown_over(self) -> set:
+        """Parts marked over their rating at the shown time."""
+        s = self.store
+        return s.over_at(self.timeline.index) if s is not None and s.n_frames and self.results_shown else set()
+
+    def _update_chart(self) -> None:
+        s = self.store
+        if s is None:
+            return
+        names = [n for n in (self._chart_parts or []) if n in s.part_names]
+        if not names:
+            names = s.rated_parts() or list(s.part_names)
+        times, pmax = s.history()
+        self.chart.show_parts(names, times, pmax, s.part_names, {n: s.rating(n) for n in names})
+        if s.n_frames:
+            self.chart.set_cursor(s.times[min(self.timeline.index, s.n_frames - 1)])
+
+    def set_chart_parts(self, names) -> None:
+        """Parts drawn in the chart (empty: every rated part)."""
+        self._chart_parts = list(names) or None
+        self._update_chart()
+
+    def _on_tree_choice(self, kind: str, index: int) -> None:
+        if kind != "parts" or self.store is None:
+            return
+        parts = self.window.document.model.parts
+        if 0 <= index < len(parts) and parts[index].name in self.store.part_names:
+            self.set_chart_parts([parts[index].name])
+
+    def _on_table_parts(self, names) -> None:
+        if names:
+            self.set_chart_parts(names)
+
+    def _on_chart_click(self, time_s: float) -> None:
+        if self.store is not None and self.store.n_frames:
+            self.timeline.set_index(self.store.index_at(time_s))
+
+    def _on_cut(self, *_):
+        axis = CUT_CHOICES[self.cut_choice.currentIndex()][1]
+        self.cut_slider.setEnabled(axis is not None)
+        self.view.set_cut(axis, self.cut_slider.value() / 100.0)
+        if self.results_shown:
+            self.show_index(self.timeline.index)
+
+    def _on_model_changed(self) -> None:
+        if self.store is not None and not self.running:
+            self.stale = True
+            if self.results_shown:
+                self.set_results_shown(False)
+            self.status.detail.setText("The model changed after these results; run again to update them "
+                                       "(F6 shows the old results).")
+
+    # ------------------------------------------------------------ files
+    def export_peaks(self, path) -> None:
+        """Write the peak table as CSV (the same content as peaks.csv from ``thermgui solve``)."""
+        self.store.write_peaks_csv(path)
+
+    def save_picture(self, path) -> None:
+        self.view.save_picture(path)
+
+    def _ask_export(self) -> None:
+        if self.store is None or self.store.peak_rows is None:
+            return
+        path, _ = QFileDialog.getSaveFileName(self.window, "Export peak table", "peaks.csv", "CSV files (*.csv)")
+        if path:
+            try:
+                self.export_peaks(path)
+                self._status_bar(f"Peak table written to {path}")
+            except OSError as e:
+                self.status.show_error("The peak table could not be written.", f"{path}: {e.strerror or e}")
+
+    def _ask_picture(self) -> None:
+        path, _ = QFileDialog.getSaveFileName(self.window, "Save view as picture", "view.png", "PNG images (*.png)")
+        if path:
+            try:
+                self.save_picture(path)
+                self._status_bar(f"Picture saved to {path}")
+            except (OSError, RuntimeError, ValueError) as e:
+                self.status.show_error("The picture could not be saved.", f"{path}: {e}")
+
+    def _ask_open(self) -> None:
+        folder = QFileDialog.getExistingDirectory(self.window, "Open results folder")
+        if folder:
+            self.open_results(folder)
+
+    def _status_bar(self, text: str) -> None:
+        bar = self.window.statusBar() if hasattr(self.window, "statusBar") else None
+        if bar is not None:
+            bar.showMessage(text, 8000)
+
+    def eventFilter(self, obj, event) -> bool:
+        if obj is self.window and event.type() == QEvent.Close:
+            self.shutdown()
+        return False
+
+
+def _clear_old_results(folder: Path) -> None:
+    """Remove an earlier run's files from ``folder`` (only if it holds results of ours)."""
+    if not folder.exists():
+        return
+    if is_run_folder(folder) or (folder / "field").is_dir() or not any(folder.iterdir()):
+        shutil.rmtree(folder)
+    else:
+        raise OSError(f"{folder} exists and does not look like a results folder; move it away first")

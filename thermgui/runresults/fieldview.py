@@ -1,0 +1,149 @@
+"""The temperature field drawn on the window's 3D plotter.
+
+The tetrahedral mesh (mm) is turned into a surface once per geometry or cut change; each frame
+then only copies the temperatures (°C) of the surface's points and asks for a repaint, which
+keeps scrubbing cheap. A cut keeps whole tetrahedra on one side of an axis plane, so the inside
+of the enclosure shows without re-filtering on every frame.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pyvista as pv
+
+SCALARS = "temperature_c"
+COLOUR_MAP = "inferno"
+LABEL_COLOUR = "#1d2733"
+OVER_COLOUR = "#d0103a"
+AXES = {"x": 0, "y": 1, "z": 2}
+CORNERS = {"lower_left": 0, "lower_right": 1, "upper_left": 2, "upper_right": 3}
+
+
+class FieldView:
+    """Owns the field actor, the time caption and the over-rating caption on ``plotter``."""
+
+    def __init__(self, plotter):
+        self.plotter = plotter
+        self.grid: pv.UnstructuredGrid | None = None
+        self.surface: pv.PolyData | None = None
+        self.point_ids: np.ndarray | None = None  # surface point → mesh node
+        self.actor = None
+        self.cut: tuple[str, float] | None = None  # (axis, fraction 0..1 of the extent kept)
+        self._field: np.ndarray | None = None
+        self._clim = (0.0, 1.0)
+        self._caption = None
+        self._over_caption = None
+        self._over_text = None
+        self.visible = False
+
+    # ------------------------------------------------------------ geometry
+    def set_geometry(self, points_mm: np.ndarray, tets: np.ndarray) -> None:
+        cells = np.hstack([np.full((len(tets), 1), 4, dtype=np.int64), np.asarray(tets, dtype=np.int64)])
+        celltypes = np.full(len(tets), pv.CellType.TETRA, dtype=np.uint8)
+        self.grid = pv.UnstructuredGrid(cells.ravel(), celltypes, np.asarray(points_mm, dtype=float))
+        self._field = None
+        self._rebuild()
+
+    def set_cut(self, axis: str | None, fraction: float = 0.5) -> None:
+        """Keep the cells whose centres lie below ``fraction`` of the extent along ``axis`` (None: all)."""
+        self.cut = None if not axis else (axis, float(np.clip(fraction, 0.0, 1.0)))
+        if self.grid is not None:
+            self._rebuild()
+
+    def _rebuild(self) -> None:
+        grid = self.grid
+        if self.cut is None:
+            sub, sub_ids = grid, np.arange(grid.n_points)
+        else:
+            a = AXES[self.cut[0]]
+            pts = grid.points
+            tets = grid.cells.reshape(-1, 5)[:, 1:]
+            centre = pts[tets, a].mean(axis=1)
+            lo, hi = pts[:, a].min(), pts[:, a].max()
+            keep = np.nonzero(centre <= lo + self.cut[1] * (hi - lo))[0]
+            if len(keep) == 0:
+                keep = np.array([int(np.argmin(centre))])
+            sub = grid.extract_cells(keep)
+            sub_ids = np.asarray(sub.point_data["vtkOriginalPointIds"])
+        surf = sub.extract_surface(pass_pointid=True, pass_cellid=False)
+        self.point_ids = sub_ids[np.asarray(surf.point_data["vtkOriginalPointIds"])]
+        surf.clear_data()
+        surf.point_data[SCALARS] = np.zeros(surf.n_points, dtype=np.float32)
+        surf.set_active_scalars(SCALARS)
+        self.surface = surf
+        if self.actor is not None:
+            self.plotter.remove_actor(self.actor, render=False)
+        self.actor = self.plotter.add_mesh(
+            surf, scalars=SCALARS, cmap=COLOUR_MAP, clim=self._clim, show_edges=False, name="results::field",
+            render=False, pickable=False, reset_camera=False, lighting=True,
+            scalar_bar_args={"title": "Temperature (°C)", "color": LABEL_COLOUR, "vertical": True,
+                             "position_x": 0.87, "position_y": 0.14, "height": 0.62, "width": 0.06,
+                             "title_font_size": 14, "label_font_size": 12, "fmt": "%.1f", "n_labels": 6})
+        self.actor.SetVisibility(self.visible)
+        if self._field is not None:
+            self.show_field(self._field, self._clim)
+
+    # ------------------------------------------------------------ per frame
+    def show_field(self, field_c: np.ndarray, clim: tuple[float, float]) -> None:
+        """Copy the temperatures of the shown surface and set the colour range (°C)."""
+        self._field = field_c
+        if self.surface is None:
+            return
+        self.surface.point_data[SCALARS][:] = np.asarray(field_c, dtype=np.float32)[self.point_ids]
+        self.surface.Modified()
+        if tuple(clim) != self._clim:
+            self._clim = (float(clim[0]), float(clim[1]))
+            self.actor.mapper.scalar_range = self._clim
+        self.repaint()
+
+    def shown_scalars(self) -> np.ndarray:
+        """Temperatures currently held by the drawn surface (°C), surface point order."""
+        return np.asarray(self.actor.mapper.dataset.point_data[SCALARS])
+
+    @property
+    def colour_range(self) -> tuple[float, float]:
+        return tuple(self.actor.mapper.scalar_range) if self.actor is not None else self._clim
+
+    def set_caption(self, text: str) -> None:
+        """The shown time, in the lower right corner of the view."""
+        self._caption = self._corner_text(self._caption, text, "lower_right", LABEL_COLOUR, "results::time")
+        self._caption.SetVisibility(self.visible)
+
+    def set_over_caption(self, text: str) -> None:
+        """A warning line in the view naming the parts over their rating ('' hides it)."""
+        if text == self._over_text:
+            return
+        self._over_text = text
+        self._over_caption = self._corner_text(self._over_caption, text or " ", "upper_left", OVER_COLOUR,
+                                               "results::over", bold=True)
+        self._over_caption.SetVisibility(self.visible and bool(text))
+
+    def _corner_text(self, actor, text, corner, colour, name, bold=False):
+        if actor is None:
+            actor = self.plotter.add_text(text, position=corner, font_size=11, color=colour, name=name,
+                                          render=False)
+            actor.GetTextProperty().SetBold(bold)
+        else:
+            actor.SetText(CORNERS[corner], text)
+        return actor
+
+    def set_visible(self, on: bool) -> None:
+        self.visible = on
+        for a in (self.actor, self._caption):
+            if a is not None:
+                a.SetVisibility(on)
+        if self._over_caption is not None:
+            self._over_caption.SetVisibility(on and bool(self._over_text))
+        if self.actor is not None:
+            sb = self.plotter.scalar_bars
+            for key in list(sb.keys()):
+                sb[key].SetVisibility(on)
+        self.repaint()
+
+    def repaint(self) -> None:
+        """Schedule a redraw of the Qt widget (cheaper than a synchronous render)."""
+        self.plotter.interactor.update() if hasattr(self.plotter, "interactor") else self.plotter.render()
+
+    def save_picture(self, path) -> None:
+        """Write the current view to a PNG file."""
+        self.plotter.render()
+        self.plotter.screenshot(str(path))

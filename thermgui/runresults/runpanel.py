@@ -1,0 +1,99 @@
+"""Run status: progress with estimated time left, messages from the engine, and the caution note."""
+from __future__ import annotations
+
+from PySide6.QtCore import Qt
+from PySide6.QtWidgets import QHBoxLayout, QLabel, QProgressBar, QVBoxLayout, QWidget
+
+from .timefmt import format_duration, format_time
+
+CAUTION_TEXT = ("Engineering estimates from a conduction model with assumed convection coefficients: confirm "
+                "them by measurement on real hardware, and defer to the applicable safety standards, codes and "
+                "licensed practice before relying on them.")
+ERROR_STYLE = ("QLabel { background: #fdecee; color: #7a0c1f; border: 1px solid #d0103a; border-radius: 3px;"
+               " padding: 4px; }")
+CAUTION_STYLE = ("QLabel { background: #fff6dc; color: #4a3b00; border: 1px solid #e0b000; border-radius: 3px;"
+                 " padding: 3px; }")
+
+
+def remaining_seconds(step: int, n_steps: int, elapsed_s: float) -> float | None:
+    """Estimated wall time left from the pace so far (None before the first step)."""
+    if step <= 0 or n_steps <= 0:
+        return None
+    return elapsed_s * (n_steps - step) / step
+
+
+class RunStatus(QWidget):
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self.bar = QProgressBar()
+        self.bar.setRange(0, 1000)
+        self.bar.setValue(0)
+        self.bar.setFormat("idle")
+        self.bar.setTextVisible(True)
+        self.detail = QLabel("Press Run (F5) to solve the model.")
+        self.message = QLabel()
+        self.message.setWordWrap(True)
+        self.message.setTextInteractionFlags(Qt.TextSelectableByMouse)
+        self.message.setStyleSheet(ERROR_STYLE)
+        self.message.hide()
+        self.caution = QLabel("⚠ " + CAUTION_TEXT)
+        self.caution.setWordWrap(True)
+        self.caution.setStyleSheet(CAUTION_STYLE)
+        top = QHBoxLayout()
+        top.addWidget(self.bar, 1)
+        top.addWidget(self.detail, 2)
+        lay = QVBoxLayout(self)
+        lay.setContentsMargins(0, 0, 0, 0)
+        lay.addLayout(top)
+        lay.addWidget(self.message)
+        self._span = 0.0
+
+    def preparing(self, text: str) -> None:
+        self.message.hide()
+        self.bar.setRange(0, 0)  # busy while meshing and assembling
+        self.bar.setFormat("preparing")
+        self.detail.setText(text)
+
+    def started(self, describe: str, span_s: float) -> None:
+        self._span = span_s
+        self.bar.setRange(0, 1000)
+        self.bar.setValue(0)
+        self.bar.setFormat("%p %")
+        self.detail.setText(describe)
+        self.detail.setToolTip(describe)
+
+    def progress(self, step: int, n_steps: int, time_s: float, elapsed_s: float) -> None:
+        self.bar.setRange(0, 1000)
+        self.bar.setValue(int(1000 * step / max(1, n_steps)))
+        self.bar.setFormat("%p %")
+        left = remaining_seconds(step, n_steps, elapsed_s)
+        self.detail.setText(f"step {step:,} of {n_steps:,} · t = {format_time(time_s, self._span)} · "
+                            f"about {format_duration(left)} left" if left is not None else
+                            f"step {step:,} of {n_steps:,}")
+
+    def finished(self, text: str) -> None:
+        self.bar.setRange(0, 1000)
+        self.bar.setValue(1000)
+        self.bar.setFormat("done")
+        self.detail.setText(text)
+
+    def stopped(self, text: str) -> None:
+        self.bar.setRange(0, 1000)
+        self.bar.setFormat("stopped")
+        self.detail.setText(text)
+
+    def show_error(self, headline: str, details: str) -> None:
+        self.bar.setRange(0, 1000)
+        self.bar.setValue(0)
+        self.bar.setFormat("not run")
+        self.detail.setText(headline)
+        self.message.setText(f"<b>{_html(headline)}</b><br>{_html(details).replace(chr(10), '<br>')}")
+        self.message.show()
+
+    def clear_error(self) -> None:
+        self.message.hide()
+        self.message.clear()
+
+
+def _html(s: str) -> str:
+    return s.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")

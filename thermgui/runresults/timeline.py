@@ -1,0 +1,112 @@
+"""Time slider over the output times, with play/pause and single steps."""
+from __future__ import annotations
+
+from PySide6.QtCore import Qt, QTimer, Signal
+from PySide6.QtWidgets import QHBoxLayout, QLabel, QSlider, QStyle, QToolButton, QWidget
+
+from .timefmt import format_time
+
+
+class TimelineBar(QWidget):
+    """Signal ``indexChanged(int)`` when the shown output changes (slider, buttons or playback)."""
+
+    indexChanged = Signal(int)
+
+    def __init__(self, parent=None, frame_interval_ms: int = 250):
+        super().__init__(parent)
+        self._times: list[float] = []
+        self._span = 0.0
+        st = self.style()
+        self.back_button = self._button(st.standardIcon(QStyle.SP_MediaSkipBackward), "One output back (,)")
+        self.play_button = self._button(st.standardIcon(QStyle.SP_MediaPlay), "Play / pause (Space)")
+        self.play_button.setCheckable(True)
+        self.forward_button = self._button(st.standardIcon(QStyle.SP_MediaSkipForward), "One output forward (.)")
+        self.back_button.setShortcut(Qt.Key_Comma)
+        self.forward_button.setShortcut(Qt.Key_Period)
+        self.slider = QSlider(Qt.Horizontal)
+        self.slider.setRange(0, 0)
+        self.slider.setPageStep(1)
+        self.slider.setToolTip("Output time shown in the view")
+        self.label = QLabel("no results yet")
+        self.label.setMinimumWidth(170)
+        lay = QHBoxLayout(self)
+        lay.setContentsMargins(0, 0, 0, 0)
+        for w in (self.back_button, self.play_button, self.forward_button):
+            lay.addWidget(w)
+        lay.addWidget(self.slider, 1)
+        lay.addWidget(self.label)
+        self.timer = QTimer(self)
+        self.timer.setInterval(frame_interval_ms)
+        self.timer.timeout.connect(self._tick)
+        self.slider.valueChanged.connect(self._on_value)
+        self.back_button.clicked.connect(lambda: self.step(-1))
+        self.forward_button.clicked.connect(lambda: self.step(1))
+        self.play_button.toggled.connect(self.set_playing)
+        self.setEnabled(False)
+
+    def _button(self, icon, tip):
+        b = QToolButton(self)
+        b.setIcon(icon)
+        b.setToolTip(tip)
+        b.setAutoRaise(True)
+        return b
+
+    # ------------------------------------------------------------ content
+    def set_times(self, times, span_s: float) -> None:
+        """Output times in seconds; keeps following the newest one if it was shown."""
+        at_end = self.slider.value() >= self.slider.maximum()
+        self._times = list(times)
+        self._span = span_s
+        self.setEnabled(bool(self._times))
+        self.slider.blockSignals(True)
+        self.slider.setRange(0, max(0, len(self._times) - 1))
+        self.slider.blockSignals(False)
+        if at_end and self._times:
+            self.set_index(len(self._times) - 1)
+        self._update_label()
+
+    @property
+    def index(self) -> int:
+        return self.slider.value()
+
+    def set_index(self, i: int) -> None:
+        i = max(0, min(int(i), self.slider.maximum()))
+        if i == self.slider.value():
+            self._update_label()
+            self.indexChanged.emit(i)
+        else:
+            self.slider.setValue(i)
+
+    def step(self, delta: int) -> None:
+        self.set_index(self.slider.value() + delta)
+
+    def _on_value(self, i: int) -> None:
+        self._update_label()
+        self.indexChanged.emit(i)
+
+    def _update_label(self) -> None:
+        if not self._times:
+            self.label.setText("no results yet")
+            return
+        i = self.slider.value()
+        self.label.setText(f"t = {format_time(self._times[i], self._span)}  of {format_time(self._span, self._span)}")
+
+    # ------------------------------------------------------------ playback
+    def set_playing(self, on: bool) -> None:
+        st = self.style()
+        self.play_button.blockSignals(True)
+        self.play_button.setChecked(on)
+        self.play_button.blockSignals(False)
+        self.play_button.setIcon(st.standardIcon(QStyle.SP_MediaPause if on else QStyle.SP_MediaPlay))
+        if on:
+            if self.slider.value() >= self.slider.maximum():
+                self.set_index(0)
+            self.timer.start()
+        else:
+            self.timer.stop()
+
+    def _tick(self) -> None:
+        if self.slider.value() >= self.slider.maximum():
+            self.set_playing(False)
+        else:
+            self.step(1)

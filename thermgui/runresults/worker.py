@@ -1,0 +1,96 @@
+"""The solver run on a worker thread: a :class:`RunWorker` drives :class:`solver.session.RunSession`.
+
+All numerics stay in ``solver``; this object only forwards the step stream to the window as Qt
+signals. Fields are sent as float32 copies at output times, and in between at most every
+``preview_every_s`` seconds of wall time for the live view, so the solve is not held up.
+"""
+from __future__ import annotations
+
+import threading
+import time
+
+import numpy as np
+from PySide6.QtCore import QObject, QThread, Signal, Slot
+
+from solver.errors import Cancelled
+from solver.session import RunSession
+
+from .messages import describe_error
+
+
+class RunWorker(QObject):
+    """Signals (all queued to the window's thread):
+
+    - ``prepared(session)`` after meshing and assembly (before the first step);
+    - ``output(time_s, field_c float32, part_max_c)`` at every output time;
+    - ``preview(time_s, field_c float32)`` between outputs, for the live view only;
+    - ``progress(step, n_steps, time_s, elapsed_s)``;
+    - ``succeeded(peak_rows)``, ``failed(headline, details, issues)``, ``stopped(text)``; then ``done()``.
+    """
+
+    prepared = Signal(object)
+    output = Signal(float, object, object)
+    preview = Signal(float, object)
+    progress = Signal(int, int, float, float)
+    succeeded = Signal(object)
+    failed = Signal(str, str, object)
+    stopped = Signal(str)
+    done = Signal()
+
+    def __init__(self, model, out_dir, preview_every_s: float = 0.3, progress_every_s: float = 0.1):
+        super().__init__()
+        self.model = model
+        self.out_dir = out_dir
+        self.preview_every_s = preview_every_s
+        self.progress_every_s = progress_every_s
+        self._stop = threading.Event()
+
+    def request_stop(self) -> None:
+        """Ask the run to stop before its next step (safe to call from any thread)."""
+        self._stop.set()
+
+    @Slot()
+    def run(self) -> None:
+        try:
+            self._run()
+        finally:
+            self.done.emit()
+
+    def _run(self) -> None:
+        try:
+            session = RunSession(self.model, self.out_dir, cancel=self._stop.is_set)
+        except Exception as e:  # ModelError (invalid, unstable step, mesh too large), MemoryError, ...
+            self.failed.emit(*describe_error(e), list(getattr(e, "issues", [])))
+            return
+        self.prepared.emit(session)
+        last_preview = last_progress = time.perf_counter()
+        try:
+            for ev in session.events():
+                now = time.perf_counter()
+                if ev.is_output:
+                    self.output.emit(ev.time_s, np.array(ev.field, dtype=np.float32), ev.part_max.copy())
+                    last_preview = now
+                elif now - last_preview >= self.preview_every_s:
+                    self.preview.emit(ev.time_s, np.array(ev.field, dtype=np.float32))
+                    last_preview = now
+                if ev.step == ev.n_steps or ev.step == 0 or now - last_progress >= self.progress_every_s:
+                    self.progress.emit(ev.step, ev.n_steps, ev.time_s, ev.elapsed_s)
+                    last_progress = now
+            rows = session.finish()
+        except Cancelled as e:
+            self.stopped.emit(str(e))
+            return
+        except Exception as e:  # SolveError, OSError while writing, anything unexpected
+            self.failed.emit(*describe_error(e), list(getattr(e, "issues", [])))
+            return
+        self.succeeded.emit(rows)
+
+
+def start_worker(worker: RunWorker, parent=None) -> QThread:
+    """Move ``worker`` to a new thread and start it; the thread quits when the run is done."""
+    thread = QThread(parent)
+    worker.moveToThread(thread)
+    thread.started.connect(worker.run)
+    worker.done.connect(thread.quit)
+    thread.start()
+    return thread
