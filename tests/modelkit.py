@@ -90,7 +90,7 @@ def plane_wall(x_over_l, fo, bi, n_terms=80):
     return np.sum(c[None, :] * np.exp(-z[None, :] ** 2 * fo) * np.cos(np.outer(x, z)), axis=1)
 
 
-def reference_ivp(problem, t_eval, breaks=(), method="Radau", rtol=1e-11, atol=1e-11):
+def reference_ivp(problem, t_eval, breaks=(), method="BDF", rtol=1e-10, atol=1e-10):
     """solve_ivp of the same semi-discrete system M d' + K d = F(t) (dense, small meshes only).
 
     The integration restarts at each profile breakpoint in ``breaks`` so that the forcing
