@@ -23,7 +23,8 @@ class PartChart(pg.PlotWidget):
         self.plotItem.setLabel("left", "Part maximum", units="°C")
         self.plotItem.getAxis("left").enableAutoSIPrefix(False)
         self.plotItem.getAxis("bottom").enableAutoSIPrefix(False)
-        self.legend = self.plotItem.addLegend(offset=(-10, 10), labelTextSize="8pt")
+        self.legend = self.plotItem.addLegend(offset=(-10, -10), labelTextSize="8pt", brush=(255, 255, 255, 210),
+                                              pen=pg.mkPen("#b0b8c0"))
         self.cursor = pg.InfiniteLine(angle=90, movable=False, pen=pg.mkPen(CURSOR_COLOUR, width=1.5))
         self.plotItem.addItem(self.cursor, ignoreBounds=True)
         self.setMouseEnabled(x=False, y=False)
@@ -57,7 +58,15 @@ class PartChart(pg.PlotWidget):
                                        labelOpts={"position": 0.05, "color": colour, "anchors": [(0, 1), (0, 1)]})
                 self.plotItem.addItem(line)
                 self.limits[name] = line
-        self.plotItem.enableAutoRange()
+        self.plotItem.enableAutoRange(axis="x")
+        shown = part_max[:, [part_names.index(n) for n in names]] if len(times) and names else np.zeros(0)
+        ys = [float(np.nanmin(shown)), float(np.nanmax(shown))] if np.isfinite(shown).any() else []
+        ys += [r for r in (ratings.get(n) for n in names) if r is not None]
+        ys = [y for y in ys if np.isfinite(y)]
+        if ys:  # keep the limit lines and their labels inside the plot
+            lo, hi = min(ys), max(ys)
+            pad = max(0.5, 0.1 * (hi - lo))
+            self.plotItem.setYRange(lo - pad, hi + pad, padding=0)
 
     def set_cursor(self, time_s: float) -> None:
         self.cursor.setPos(time_s / self._unit[1])

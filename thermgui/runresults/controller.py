@@ -13,7 +13,7 @@ from pathlib import Path
 
 from PySide6.QtCore import QEvent, QObject, Qt, QTimer
 from PySide6.QtGui import QAction, QKeySequence
-from PySide6.QtWidgets import (QCheckBox, QComboBox, QFileDialog, QHBoxLayout, QLabel, QSlider, QSplitter,
+from PySide6.QtWidgets import (QCheckBox, QComboBox, QFileDialog, QHBoxLayout, QLabel, QSizePolicy, QSlider, QSplitter,
                                QStyle, QVBoxLayout, QWidget)
 
 from solver.errors import ModelError
@@ -91,15 +91,19 @@ class ResultsController(QObject):
         lay.addLayout(options)
         lay.addWidget(self.status.caution)
         self.chart = PartChart()
-        self.chart.setMinimumHeight(150)
+        self.chart.setMinimumHeight(140)
+        run_box.setSizePolicy(QSizePolicy.Preferred, QSizePolicy.Maximum)
         self.table = PeakTable()
         split = QSplitter(Qt.Horizontal)
         split.addWidget(self.chart)
         split.addWidget(self.table)
-        split.setStretchFactor(0, 1)
-        split.setStretchFactor(1, 1)
+        split.setStretchFactor(0, 2)
+        split.setStretchFactor(1, 3)
         self.run_dock = w.add_dock(run_box, Qt.BottomDockWidgetArea, "Run and time")
         self.results_dock = w.add_dock(split, Qt.BottomDockWidgetArea, "Temperatures and peaks")
+        if self.run_dock is not None and self.results_dock is not None and hasattr(w, "splitDockWidget"):
+            w.splitDockWidget(self.run_dock, self.results_dock, Qt.Vertical)  # run bar above, full width
+            w.resizeDocks([self.run_dock, self.results_dock], [175, 250], Qt.Vertical)
         self.timeline.indexChanged.connect(self.show_index)
         self.rescale_box.toggled.connect(lambda _: self.show_index(self.timeline.index))
         self.cut_choice.currentIndexChanged.connect(self._on_cut)

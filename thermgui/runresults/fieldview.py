@@ -34,6 +34,7 @@ class FieldView:
         self._over_caption = None
         self._over_text = None
         self.visible = False
+        self._framed_bounds = None
 
     # ------------------------------------------------------------ geometry
     def set_geometry(self, points_mm: np.ndarray, tets: np.ndarray) -> None:
@@ -42,6 +43,12 @@ class FieldView:
         self.grid = pv.UnstructuredGrid(cells.ravel(), celltypes, np.asarray(points_mm, dtype=float))
         self._field = None
         self._rebuild()
+        bounds = tuple(np.round(self.grid.bounds, 6))
+        if bounds != self._framed_bounds:  # new shape: frame it (keep the user's camera otherwise)
+            if self._framed_bounds is None:
+                self.plotter.view_isometric(render=False)
+            self.plotter.reset_camera(render=False, bounds=self.grid.bounds)
+            self._framed_bounds = bounds
 
     def set_cut(self, axis: str | None, fraction: float = 0.5) -> None:
         """Keep the cells whose centres lie below ``fraction`` of the extent along ``axis`` (None: all)."""
@@ -64,7 +71,7 @@ class FieldView:
                 keep = np.array([int(np.argmin(centre))])
             sub = grid.extract_cells(keep)
             sub_ids = np.asarray(sub.point_data["vtkOriginalPointIds"])
-        surf = sub.extract_surface(pass_pointid=True, pass_cellid=False)
+        surf = sub.extract_surface(pass_pointid=True, pass_cellid=False, algorithm="dataset_surface")
         self.point_ids = sub_ids[np.asarray(surf.point_data["vtkOriginalPointIds"])]
         surf.clear_data()
         surf.point_data[SCALARS] = np.zeros(surf.n_points, dtype=np.float32)

@@ -56,6 +56,7 @@ class PeakTable(QWidget):
         self.table.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeToContents)
         self.table.horizontalHeader().setStretchLastSection(True)
         self.table.setAlternatingRowColors(False)
+        self.table.horizontalHeader().moveSection(STATUS_COL, 1)  # shown next to the part; CSV order kept
         self.summary = QLabel("The peak table appears when a run finishes.")
         self.summary.setWordWrap(True)
         self.export_button = QPushButton("Export CSV…")

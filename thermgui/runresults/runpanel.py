@@ -39,6 +39,7 @@ class RunStatus(QWidget):
         self.caution = QLabel("⚠ " + CAUTION_TEXT)
         self.caution.setWordWrap(True)
         self.caution.setStyleSheet(CAUTION_STYLE)
+        self.caution.setMinimumHeight(2 * self.caution.fontMetrics().lineSpacing() + 10)
         top = QHBoxLayout()
         top.addWidget(self.bar, 1)
         top.addWidget(self.detail, 2)
@@ -67,7 +68,7 @@ class RunStatus(QWidget):
         self.bar.setValue(int(1000 * step / max(1, n_steps)))
         self.bar.setFormat("%p %")
         left = remaining_seconds(step, n_steps, elapsed_s)
-        self.detail.setText(f"step {step:,} of {n_steps:,} · t = {format_time(time_s, self._span)} · "
+        self.detail.setText(f"step {step:,} of {n_steps:,} · t = {format_time(time_s)} · "
                             f"about {format_duration(left)} left" if left is not None else
                             f"step {step:,} of {n_steps:,}")
 

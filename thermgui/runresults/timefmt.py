@@ -19,6 +19,9 @@ def format_time(t_s: float, span_s: float | None = None) -> str:
     if t_s is None or not math.isfinite(t_s):
         return "–"
     unit, size = time_unit(t_s if span_s is None else span_s)
+    if abs(t_s) < size and t_s != 0:  # e.g. 40 s into a 5 h run: '40 s', not '0.01 h'
+        unit, size = time_unit(t_s)
+        unit, size = ("s", 1.0) if abs(t_s) < 60 else ("min", 60.0) if unit == "s" else (unit, size)
     v = t_s / size
     digits = 0 if unit == "s" and abs(v - round(v)) < 1e-9 else (1 if unit == "s" else 2)
     text = f"{v:.{digits}f}"
