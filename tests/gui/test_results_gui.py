@@ -1,8 +1,6 @@
-"""Run and results in a window, driven as a user would (pytest-qt, real widgets under Xvfb).
+"""Run and results in the main window, driven as a user would (pytest-qt, real widgets under Xvfb).
 
-Uses the real MainWindow when it exists, otherwise a stand-in main window with exactly the
-attributes the results half relies on (document, viewport.plotter, item_tree.mark_parts, menus,
-toolbar, add_dock). References: the engine's own ``thermgui solve`` output for the same model.
+Reference for the numbers: the engine's own ``thermgui solve`` output for the same model.
 """
 from __future__ import annotations
 
@@ -15,13 +13,12 @@ import pytest
 import pyvista as pv
 
 pytest.importorskip("pytestqt")
-from PySide6.QtCore import QObject, QPointF, Qt, Signal  # noqa: E402
+from PySide6.QtCore import QPointF, Qt  # noqa: E402
 from PySide6.QtGui import QGuiApplication  # noqa: E402
-from PySide6.QtWidgets import QMainWindow, QMenu, QToolBar, QTreeWidget, QDockWidget, QVBoxLayout, QWidget  # noqa: E402
 
 from solver.cli import solve_to_folder  # noqa: E402
 from solver.model import parse_model, save_model  # noqa: E402
-from thermgui.runresults import install, results_folder_for  # noqa: E402
+from thermgui.runresults import results_folder_for  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[2]
 ARTIFACTS = ROOT / "tests" / "_artifacts"
@@ -51,92 +48,17 @@ def chip_on_plate(**run) -> dict:
     }
 
 
-# ---------------------------------------------------------------- stand-in window
-class _Doc(QObject):
-    changed = Signal()
-
-    def __init__(self, model, path):
-        super().__init__()
-        self.model, self.path = model, path
-
-
-class _View(QWidget):
-    def __init__(self):
-        super().__init__()
-        from pyvistaqt import QtInteractor
-        self.plotter = QtInteractor(self, auto_update=False)
-        QVBoxLayout(self).addWidget(self.plotter.interactor)
-        self.plotter.set_background("#e9edf2", top="#ffffff")
-        self._marks = []
-        self.mode = "edit"
-        self.highlighted: set = set()
-
-    def set_mode(self, mode):
-        self.mode = mode
-
-    def highlight_parts(self, names):
-        """Crimson frames around the named parts (as the real viewport does)."""
-        self.highlighted = set(names)
-        for a in self._marks:
-            self.plotter.remove_actor(a, render=False)
-        self._marks = []
-        for p in self.parent_model().parts:
-            if p.name in self.highlighted:
-                o, s = p.origin_mm, p.size_mm
-                box = pv.Box(bounds=(o[0], o[0] + s[0], o[1], o[1] + s[1], o[2], o[2] + s[2]))
-                self._marks.append(self.plotter.add_mesh(box.extract_feature_edges(), color="#d0103a",
-                                                         line_width=4, render=False))
-
-
-class _Tree(QTreeWidget):
-    itemChosen = Signal(str, int)
-
-    def __init__(self):
-        super().__init__()
-        self.marked_parts: set = set()
-        self.selected = None
-
-    def mark_parts(self, over):
-        self.marked_parts = set(over)
-
-    def select(self, kind, index, emit=True):
-        self.selected = (kind, index)
-
-
-class StandInWindow(QMainWindow):
-    def __init__(self, model, path):
-        super().__init__()
-        self.document = _Doc(model, path)
-        self.viewport = _View()
-        self.viewport.parent_model = lambda: self.document.model
-        self.item_tree = _Tree()
-        self.setCentralWidget(self.viewport)
-        self.menus = {k: self.menuBar().addMenu(k.title()) for k in ("file", "edit", "view", "run", "help")}
-        self.toolbar = QToolBar("main")
-        self.addToolBar(self.toolbar)
-        self.resize(1280, 900)
-        install(self)
-
-    def add_dock(self, widget, area, title):
-        d = QDockWidget(title, self)
-        d.setWidget(widget)
-        self.addDockWidget(area, d)
-        return d
-
-    def closeEvent(self, event):
-        self.viewport.plotter.close()
-        super().closeEvent(event)
-
-
-def make_window(qtbot, model_dict, folder: Path):
-    model = parse_model(model_dict)
+def make_window(open_main_window, model_dict, folder: Path):
+    """The real main window on a saved copy of ``model_dict`` (shared fixture from conftest)."""
     path = folder / "chip.json"
-    save_model(model, path)
-    win = StandInWindow(model, path)
-    qtbot.addWidget(win)
-    win.show()
-    qtbot.waitExposed(win)
+    save_model(parse_model(model_dict), path)
+    win = open_main_window(path)
+    assert win.document.path == path and hasattr(win, "results")
     return win, path
+
+
+def highlighted(win) -> set:
+    return set(win.viewport._marked)
 
 
 def run_to_end(qtbot, win, timeout=60000):
@@ -163,8 +85,8 @@ def cli_peaks(tmp_path_factory):
     return base / "out"
 
 
-def test_run_scrub_mark_export_reopen(qtbot, tmp_path, cli_peaks):
-    win, path = make_window(qtbot, chip_on_plate(), tmp_path)
+def test_run_scrub_mark_export_reopen(qtbot, tmp_path, cli_peaks, open_main_window):
+    win, path = make_window(open_main_window, chip_on_plate(), tmp_path)
     res = win.results
     before = win.document.model.model_dump()
     assert res.start_run()
@@ -196,10 +118,10 @@ def test_run_scrub_mark_export_reopen(qtbot, tmp_path, cli_peaks):
 
     # at t = 0 nothing is over; at the end the chip is marked in tree, view and table
     res.timeline.set_index(0)
-    assert win.item_tree.marked_parts == set() and win.viewport.highlighted == set()
+    assert win.item_tree.marked_parts == set() and highlighted(win) == set()
     res.timeline.set_index(6)
     assert win.item_tree.marked_parts == {"chip"}
-    assert win.viewport.highlighted == {"chip"}
+    assert highlighted(win) == {"chip"}
     assert "chip" in res.view._over_text and "40 °C" in res.view._over_text
     assert res.table.marked_parts() == {"chip"}
     shot(win, "results-scrubbing-over-rating.png")
@@ -233,7 +155,7 @@ def test_run_scrub_mark_export_reopen(qtbot, tmp_path, cli_peaks):
 
     # picture of the view
     png = tmp_path / "view.png"
-    res.save_picture(png)
+    assert win.save_picture(str(png))
     assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
     # reopen the finished folder: same frames, no solving
@@ -250,8 +172,8 @@ def test_run_scrub_mark_export_reopen(qtbot, tmp_path, cli_peaks):
     assert res.table.marked_parts() == {"chip"}
 
 
-def test_refused_run_gives_message_and_keeps_model(qtbot, tmp_path):
-    win, _ = make_window(qtbot, chip_on_plate(scheme="forward-euler", step_s=5.0), tmp_path)
+def test_refused_run_gives_message_and_keeps_model(qtbot, tmp_path, open_main_window):
+    win, _ = make_window(open_main_window, chip_on_plate(scheme="forward-euler", step_s=5.0), tmp_path)
     res = win.results
     before = json.dumps(win.document.model.model_dump(), sort_keys=True)
     res.start_run()
@@ -259,13 +181,13 @@ def test_refused_run_gives_message_and_keeps_model(qtbot, tmp_path):
     assert res.status.message.isVisible()
     text = res.status.message.text()
     assert "run.step_s" in text and "forward Euler" in text
-    assert win.item_tree.selected == ("study", 0)
+    assert win.item_tree.current() == ("study", 0)
     assert json.dumps(win.document.model.model_dump(), sort_keys=True) == before
     assert res.run_action.isEnabled()
 
 
-def test_stop_cancels_between_steps(qtbot, tmp_path):
-    win, _ = make_window(qtbot, chip_on_plate(duration_s=20000.0, step_s=1.0, output_every_s=50.0), tmp_path)
+def test_stop_cancels_between_steps(qtbot, tmp_path, open_main_window):
+    win, _ = make_window(open_main_window, chip_on_plate(duration_s=20000.0, step_s=1.0, output_every_s=50.0), tmp_path)
     res = win.results
     res.start_run()
     qtbot.waitUntil(lambda: res.store is not None and res.store.n_frames >= 3 and res.timeline.isEnabled(),

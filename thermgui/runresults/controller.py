@@ -51,13 +51,18 @@ class ResultsController(QObject):
         self._redraw.setSingleShot(True)
         self._redraw.setInterval(LIVE_REDRAW_MS)
         self._redraw.timeout.connect(self._live_refresh)
+        self._results_model: dict | None = None  # the model dict the shown results were computed for
+        self._checked_path = None
         doc = window.document
         if hasattr(doc, "changed"):
             doc.changed.connect(self._on_model_changed)
         tree = getattr(window, "item_tree", None)
         if tree is not None and hasattr(tree, "itemChosen"):
             tree.itemChosen.connect(self._on_tree_choice)
-        window.installEventFilter(self)
+        if callable(getattr(window, "shutdown", None)):
+            window.before_shutdown = self.shutdown  # called once the close is confirmed
+        else:
+            window.installEventFilter(self)
 
     # ------------------------------------------------------------ construction
     def _build_widgets(self) -> None:
@@ -132,12 +137,13 @@ class ResultsController(QObject):
         self.export_action = QAction("&Export Peak Table…", w)
         self.export_action.setEnabled(False)
         self.picture_action = QAction("Save View as &Picture…", w)
-        self.picture_action.setShortcut(QKeySequence("Ctrl+Shift+P"))
         for a in (self.run_action, self.stop_action, self.show_action):
             menu.addAction(a)
         menu.addSeparator()
-        for a in (self.open_action, self.export_action, self.picture_action):
+        for a in (self.open_action, self.export_action):
             menu.addAction(a)
+        if not callable(getattr(w, "save_picture", None)):  # the window may already offer one
+            menu.addAction(self.picture_action)
         w.toolbar.addSeparator()
         w.toolbar.addAction(self.run_action)
         w.toolbar.addAction(self.stop_action)
@@ -173,6 +179,7 @@ class ResultsController(QObject):
             return False
         self.status.clear_error()
         self.status.preparing("Meshing and assembling the model…")
+        self._pending_model = model.to_json_dict()
         self.worker = RunWorker(model.model_copy(deep=True), out_dir)
         self.worker.prepared.connect(self._on_prepared)
         self.worker.output.connect(self._on_output)
@@ -207,6 +214,7 @@ class ResultsController(QObject):
 
     def _on_prepared(self, session) -> None:
         self.store = ResultsStore.for_problem(session.problem, session.out_dir)
+        self._results_model = self._pending_model
         self._live = None
         self.stale = False
         self.view.set_geometry(self.store.points_mm, self.store.tets)
@@ -307,7 +315,8 @@ class ResultsController(QObject):
             self.status.show_error("These results cannot be opened.", f"{folder}: damaged or incomplete ({e})")
             return None
         self.store = store
-        self.stale = False
+        self._results_model = run.model_dict
+        self.stale = self._model_differs()
         self.status.clear_error()
         self.view.set_geometry(store.points_mm, store.tets)
         self.table.set_rows(store.peak_rows)
@@ -413,13 +422,41 @@ class ResultsController(QObject):
         if self.results_shown:
             self.show_index(self.timeline.index)
 
+    def _model_differs(self) -> bool:
+        model = getattr(self.window.document, "model", None)
+        return model is None or self._results_model is None or model.to_json_dict() != self._results_model
+
     def _on_model_changed(self) -> None:
-        if self.store is not None and not self.running:
-            self.stale = True
+        path = getattr(self.window.document, "path", None)
+        if path != self._checked_path:  # a model was opened: reopen the results kept beside it
+            self._checked_path = path
+            if path and not self.running and self._open_beside(path):
+                return
+        if self.store is None or self.running:
+            return
+        was, self.stale = self.stale, self._model_differs()
+        if self.stale and not was:
             if self.results_shown:
                 self.set_results_shown(False)
             self.status.detail.setText("The model changed after these results; run again to update them "
                                        "(F6 shows the old results).")
+        elif was and not self.stale:
+            self.status.detail.setText("The model is again the one these results were computed for.")
+
+    def _open_beside(self, model_path) -> bool:
+        """Open ``<stem>.results`` if it holds results of exactly this model (True if opened)."""
+        folder = results_folder_for(model_path)
+        if not is_run_folder(folder):
+            return False
+        try:
+            same = load_run(folder).model_dict == self.window.document.model.to_json_dict()
+        except (ModelError, OSError, ValueError):
+            return False
+        if not same:
+            self.status.detail.setText(f"{folder.name} holds results of an earlier version of this model; "
+                                       "Run (F5) to update them.")
+            return False
+        return self.open_results(folder) is not None
 
     # ------------------------------------------------------------ files
     def export_peaks(self, path) -> None:
