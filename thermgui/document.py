@@ -51,9 +51,15 @@ class ModelDocument(QObject):
         self.path: Path | None = Path(path) if path else None
         self.undo_stack = QUndoStack(self)
         self._recovered = False
-        self.undo_stack.cleanChanged.connect(lambda _clean: self.dirtyChanged.emit(self.dirty))
+        self.undo_stack.cleanChanged.connect(self._clean_changed)
 
     # ------------------------------------------------------------ state
+    def _clean_changed(self, clean: bool) -> None:
+        try:
+            self.dirtyChanged.emit(self._recovered or not clean)
+        except RuntimeError:  # the stack is being destroyed with the window
+            pass
+
     @property
     def dirty(self) -> bool:
         return self._recovered or not self.undo_stack.isClean()

@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import numpy as np
 import pyvista as pv
-from PySide6.QtCore import Signal
+from PySide6.QtCore import QEvent, Qt, QTimer, Signal
 from PySide6.QtWidgets import QVBoxLayout, QWidget
 from pyvistaqt import QtInteractor
 from vtkmodules.vtkInteractionWidgets import vtkBoxWidget
@@ -115,8 +115,8 @@ class Viewport(QWidget):
         self._box.GetFaceProperty().SetOpacity(0.0)
         self._box.GetSelectedFaceProperty().SetOpacity(0.15)
         self._box.AddObserver("EndInteractionEvent", self._on_box_released)
-        self.plotter.iren.add_observer("LeftButtonPressEvent", self._on_press)
-        self.plotter.iren.add_observer("LeftButtonReleaseEvent", self._on_release)
+        # clicks are read from Qt's events, before VTK (the handle frame consumes clicks inside it)
+        self.plotter.interactor.installEventFilter(self)
 
     # ------------------------------------------------------------ drawing
     def refresh(self) -> None:
@@ -317,17 +317,19 @@ class Viewport(QWidget):
         self.partClicked.emit(name)
         return name
 
-    def _on_press(self, *_args):
-        self._press = self.plotter.iren.interactor.GetEventPosition()
-
-    def _on_release(self, *_args):
-        if self._press is None:
-            return
-        x, y = self.plotter.iren.interactor.GetEventPosition()
-        px, py = self._press
-        self._press = None
-        if abs(x - px) <= CLICK_SLOP_PX and abs(y - py) <= CLICK_SLOP_PX:
-            self.pick_at(x, y)
+    def eventFilter(self, obj, event):
+        t = event.type()
+        if t in (QEvent.MouseButtonPress, QEvent.MouseButtonDblClick) and event.button() == Qt.LeftButton:
+            self._press = event.position()
+        elif t == QEvent.MouseButtonRelease and event.button() == Qt.LeftButton and self._press is not None:
+            pos, press = event.position(), self._press
+            self._press = None
+            if abs(pos.x() - press.x()) <= CLICK_SLOP_PX and abs(pos.y() - press.y()) <= CLICK_SLOP_PX:
+                ratio = self.plotter.devicePixelRatioF()
+                x, y = pos.x() * ratio, (self.plotter.height() - pos.y()) * ratio
+                # pick once VTK has finished with this click (picking may move the handle frame)
+                QTimer.singleShot(0, lambda: self.pick_at(x, y))
+        return False
 
     def _on_box_released(self, widget, _event):
         if self._selected is None:
@@ -335,9 +337,11 @@ class Viewport(QWidget):
         poly = vtkPolyData()
         widget.GetPolyData(poly)
         b = poly.GetBounds()
+        p = self._part(self._selected)
+        if p is not None and np.allclose(b, self._bounds(p), atol=1e-9):
+            return  # a click inside the frame, not a drag
         lower = [snap(b[0], self.snap_mm), snap(b[2], self.snap_mm), snap(b[4], self.snap_mm)]
         upper = [snap(b[1], self.snap_mm), snap(b[3], self.snap_mm), snap(b[5], self.snap_mm)]
-        self._press = None  # a handle drag is not a click
         self.boxEdited.emit(self._selected, lower, upper)
 
     def close_plotter(self) -> None:

@@ -1,0 +1,118 @@
+"""Shared GUI fixtures: a main window on a copy of the default sample, with scripted dialogs.
+
+Dialogs never block: the window's ``prompts`` is a :class:`ScriptedPrompts` that records
+every message and answers from a queue, and any stray QMessageBox / QFileDialog call is
+recorded and answered "cancel" instead of waiting for a click.
+"""
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[2]
+SAMPLE = ROOT / "samples" / "outdoor_radio_box.json"
+ARTIFACTS = ROOT / "tests" / "_artifacts"
+
+
+class ScriptedPrompts:
+    """Stands in for thermgui.prompts.DialogPrompts: records messages, answers from queues."""
+
+    def __init__(self):
+        self.messages: list[tuple[str, str, str]] = []  # (kind, title, text)
+        self.answers: list[str] = []  # for ask(); empty -> the last choice (cancel / no)
+        self.paths: list[str] = []  # for open_path / save_path / image_path; empty -> ""
+
+    def error(self, title, text):
+        self.messages.append(("error", title, text))
+
+    def info(self, title, text):
+        self.messages.append(("info", title, text))
+
+    def ask(self, title, text, choices=("yes", "no")):
+        self.messages.append(("ask", title, text))
+        return self.answers.pop(0) if self.answers else choices[-1]
+
+    def _path(self, title, start=""):
+        self.messages.append(("path", title, start))
+        return self.paths.pop(0) if self.paths else ""
+
+    open_path = save_path = image_path = _path
+
+    def errors(self) -> list[str]:
+        return [t for k, _, t in self.messages if k == "error"]
+
+
+@pytest.fixture(autouse=True)
+def no_blocking_dialogs(monkeypatch):
+    """Record any QMessageBox / QFileDialog static call instead of showing a modal dialog."""
+    from PySide6.QtWidgets import QFileDialog, QMessageBox
+
+    seen = []
+
+    def box(kind):
+        def f(parent, title, text, *a, **k):
+            seen.append((kind, title, text))
+            return QMessageBox.Cancel
+        return f
+
+    for kind in ("warning", "information", "critical", "question"):
+        monkeypatch.setattr(QMessageBox, kind, staticmethod(box(kind)))
+    monkeypatch.setattr(QFileDialog, "getOpenFileName", staticmethod(lambda *a, **k: ("", "")))
+    monkeypatch.setattr(QFileDialog, "getSaveFileName", staticmethod(lambda *a, **k: ("", "")))
+    monkeypatch.setattr(QFileDialog, "getExistingDirectory", staticmethod(lambda *a, **k: ""))
+    return seen
+
+
+@pytest.fixture
+def gui_state(tmp_path, monkeypatch) -> Path:
+    """A private folder for settings and recovery files (THERMGUI_STATE_DIR)."""
+    d = tmp_path / "state"
+    d.mkdir()
+    monkeypatch.setenv("THERMGUI_STATE_DIR", str(d))
+    return d
+
+
+@pytest.fixture
+def sample_copy(tmp_path) -> Path:
+    p = tmp_path / "models" / SAMPLE.name
+    p.parent.mkdir()
+    shutil.copy(SAMPLE, p)
+    return p
+
+
+@pytest.fixture
+def open_main_window(qtbot, gui_state):
+    """Factory: ``open_main_window(path)`` -> a shown MainWindow with scripted prompts
+    (``window.prompts``), auto_update=False, no autosave timer; closed cleanly afterwards."""
+    import pyvista as pv
+
+    from thermgui.app import open_window
+
+    pv.global_theme.multi_samples = 0
+    made = []
+
+    def make(path=None, prompts=None, **kw):
+        kw.setdefault("autosave_s", 0)
+        w = open_window(path, prompts=prompts or ScriptedPrompts(), auto_update=False, **kw)
+        qtbot.addWidget(w)
+        qtbot.waitExposed(w)
+        made.append(w)
+        return w
+
+    yield make
+    for w in made:
+        w.shutdown()  # releases the render window; later closeEvent just accepts
+
+
+@pytest.fixture
+def main_window(open_main_window, sample_copy):
+    """The main window on a fresh copy of the default sample."""
+    return open_main_window(sample_copy)
+
+
+@pytest.fixture
+def artifacts() -> Path:
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    return ARTIFACTS

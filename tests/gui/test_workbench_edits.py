@@ -1,0 +1,96 @@
+"""Pure model edits behind the workbench commands (no Qt): every result must still validate."""
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from solver.errors import ModelError
+from solver.model import parse_model
+from thermgui import edits
+
+SAMPLE = Path(__file__).resolve().parents[2] / "samples" / "outdoor_radio_box.json"
+
+
+@pytest.fixture
+def sample() -> dict:
+    return parse_model(json.loads(SAMPLE.read_text())).to_json_dict()
+
+
+def names(d, kind="parts"):
+    return [it["name"] for it in d[kind]]
+
+
+def test_rename_part_updates_loads_and_faces(sample):
+    i = names(sample).index("lid")
+    new = edits.rename_item(sample, "parts", i, "top cover")
+    parse_model(new)
+    assert new["parts"][i]["name"] == "top cover"
+    assert [c["part"] for c in new["convection"]].count("top cover") == 1
+    assert "lid" not in [c["part"] for c in new["convection"]]
+    assert sample["parts"][i]["name"] == "lid"  # the input is not modified
+
+
+def test_delete_part_takes_its_loads_and_faces(sample):
+    i = names(sample).index("radio module")
+    new = edits.delete_item(sample, "parts", i)
+    parse_model(new)
+    assert "radio module" not in names(new)
+    assert [h["part"] for h in new["heat_loads"]] == ["regulator"]
+
+
+def test_duplicate_gets_fresh_name_and_same_box(sample):
+    i = names(sample).index("regulator")
+    new, j = edits.duplicate_item(sample, "parts", i)
+    parse_model(new)
+    assert j == i + 1 and new["parts"][j]["name"] == "regulator copy"
+    assert new["parts"][j]["size_mm"] == sample["parts"][i]["size_mm"]
+    again, k = edits.duplicate_item(new, "parts", i)
+    assert again["parts"][k]["name"] == "regulator copy 2"
+
+
+def test_new_items_validate(sample):
+    d = sample
+    for kind in edits.KINDS:
+        d, i = edits.add_item(d, kind, edits.new_item(d, kind, "regulator"))
+        parse_model(d)
+    assert d["heat_loads"][-1]["part"] == "regulator"
+    # the new probe sits at the regulator's centre: (75 + 3, 40 + 3, 11.6 + 0.7) mm
+    assert d["probes"][-1]["at_mm"] == pytest.approx([78.0, 43.0, 12.3])
+    # the new part sits on top of everything (the lid top is at z = 40 mm)
+    assert d["parts"][-1]["origin_mm"][2] == 40.0
+
+
+def test_set_box_snaps_corners(sample):
+    i = names(sample).index("regulator")
+    new = edits.set_box(sample, i, [74.6, 40.2, 11.6], [81.3, 46.9, 13.0], step=0.5)
+    p = new["parts"][i]
+    assert p["origin_mm"] == [74.5, 40.0, 11.5]
+    assert p["size_mm"] == pytest.approx([7.0, 7.0, 1.5])
+    # a side that would vanish after snapping keeps one increment
+    thin = edits.set_box(sample, i, [0.0, 0.0, 0.1], [2.0, 2.0, 0.2], step=1.0)
+    assert thin["parts"][i]["size_mm"][2] == 1.0
+
+
+def test_place_onto_top_face_keeps_overlapping_footprint(sample):
+    reg, board = names(sample).index("regulator"), names(sample).index("main board")
+    moved = edits.set_value(sample, ("parts", reg, "origin_mm", 2), 30.0)  # float it above the board
+    new = edits.place_onto(moved, reg, board, "z+")
+    assert new["parts"][reg]["origin_mm"] == [75.0, 40.0, 11.6]
+
+
+def test_place_onto_centres_when_footprint_is_off_the_face(sample):
+    reg, sw = names(sample).index("regulator"), names(sample).index("standoff sw")
+    new = edits.place_onto(sample, reg, sw, "z-")
+    # standoff sw: origin (12, 12, 3), size (5, 5, 7); regulator 6 x 6 x 1.4 goes under it, centred
+    assert new["parts"][reg]["origin_mm"] == pytest.approx([11.5, 11.5, 1.6])
+    with pytest.raises(ValueError):
+        edits.place_onto(sample, reg, reg, "z+")
+
+
+def test_negative_size_is_refused_by_the_model_check(sample):
+    bad = edits.set_value(sample, ("parts", 0, "size_mm", 1), -5.0)
+    with pytest.raises(ModelError) as e:
+        parse_model(bad)
+    assert e.value.first_path == "parts[0].size_mm[1]"

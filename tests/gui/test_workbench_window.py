@@ -1,0 +1,243 @@
+"""The workbench driven as a user would: pick in the 3D view, type into forms, undo, add, place."""
+from __future__ import annotations
+
+import pytest
+from PySide6.QtCore import QPoint, Qt
+from PySide6.QtTest import QTest
+
+pytestmark = pytest.mark.gui
+
+
+def click_view(window, point_mm):
+    """Left-click the 3D view where the point (mm) is drawn."""
+    vp = window.viewport
+    vp.plotter.render()
+    x, y = vp.screen_position(point_mm)
+    QTest.mouseClick(vp.plotter.interactor, Qt.LeftButton, Qt.NoModifier, QPoint(x, y))
+    QTest.qWait(20)
+
+
+def type_into(line_edit, text):
+    line_edit.setFocus()
+    line_edit.selectAll()
+    QTest.keyClicks(line_edit, text)
+    QTest.keyClick(line_edit, Qt.Key_Return)
+
+
+def part(window, name):
+    return window.document.model.parts[window.document.model.part_index(name)]
+
+
+def test_click_in_view_selects_part_in_tree_and_form(main_window):
+    w = main_window
+    click_view(w, [60, 40, 40])  # centre of the lid's top face: the lid is in front
+    assert w.item_tree.current() == ("parts", w.document.model.part_index("lid"))
+    assert w.viewport.selected_part == "lid"
+    assert w.properties.title.text() == "Part · lid"
+    # hide the lid with its check box, then click on the regulator's top face
+    w.item_tree.part_row("lid").setCheckState(0, Qt.Unchecked)
+    assert "lid" in w.viewport.hidden_parts
+    click_view(w, [78, 43, 13.0])
+    assert w.item_tree.current() == ("parts", w.document.model.part_index("regulator"))
+    assert w.viewport.selected_part == "regulator"
+    assert w.properties.forms["parts"].name.text() == "regulator"
+    # and the other way: choosing a row in the list selects the part in the view
+    w.item_tree.select("parts", w.document.model.part_index("main board"))
+    assert w.viewport.selected_part == "main board"
+    # a click into empty space clears the selection
+    QTest.mouseClick(w.viewport.plotter.interactor, Qt.LeftButton, Qt.NoModifier, QPoint(5, 200))
+    QTest.qWait(20)
+    assert w.item_tree.current() is None and w.viewport.selected_part is None
+
+
+def test_clicking_again_reaches_the_part_behind(main_window):
+    w = main_window
+    click_view(w, [60, 40, 40])
+    assert w.viewport.selected_part == "lid"
+    click_view(w, [60, 40, 40])
+    behind = w.viewport.selected_part
+    assert behind not in (None, "lid")
+    # the part now selected really lies on the ray through that pixel, behind the lid
+    x, y = w.viewport.screen_position([60, 40, 40])
+    ray = [n for n, _ in w.viewport.parts_under(x, w.viewport.plotter.height() - y)]
+    assert ray[0] == "lid" and ray[1] == behind
+
+
+def test_size_typed_in_form_then_undo_redo(main_window):
+    w = main_window
+    i = w.document.model.part_index("regulator")
+    w.item_tree.select("parts", i)
+    size_x = w.properties.forms["parts"].size.fields[0].edit
+    type_into(size_x, "10")
+    assert part(w, "regulator").size_mm == [10.0, 6.0, 1.4]
+    assert w.document.dirty and w.isWindowModified()
+    undo, redo = w.actions_["undo"], w.actions_["redo"]
+    assert undo.shortcut().toString() == "Ctrl+Z"
+    assert {s.toString() for s in redo.shortcuts()} == {"Ctrl+Shift+Z", "Ctrl+Y"}
+    assert "size x" in undo.text() and "regulator" in undo.text()
+    undo.trigger()
+    assert part(w, "regulator").size_mm == [6.0, 6.0, 1.4]
+    assert size_x.text() == "6"  # the form follows the undo
+    assert not w.document.dirty
+    redo.trigger()
+    assert part(w, "regulator").size_mm == [10.0, 6.0, 1.4]
+    # the keyboard shortcuts reach the same actions
+    w.activateWindow()
+    assert QTest.qWaitForWindowActive(w)
+    w.item_tree.setFocus()
+    QTest.keyClick(w.item_tree, Qt.Key_Z, Qt.ControlModifier)
+    assert part(w, "regulator").size_mm == [6.0, 6.0, 1.4]
+    QTest.keyClick(w.item_tree, Qt.Key_Y, Qt.ControlModifier)
+    assert part(w, "regulator").size_mm == [10.0, 6.0, 1.4]
+
+
+def test_negative_size_is_refused_with_a_message(main_window):
+    w = main_window
+    before = w.document.model_dict()
+    i = w.document.model.part_index("radio module")
+    w.item_tree.select("parts", i)
+    size_z = w.properties.forms["parts"].size.fields[2].edit
+    type_into(size_z, "-2")
+    errors = w.prompts.errors()
+    assert len(errors) == 1
+    assert f"parts[{i}].size_mm[2]" in errors[0] and "greater than 0" in errors[0]
+    assert "radio module" in errors[0] and "unchanged" in errors[0]
+    assert w.document.model_dict() == before
+    assert size_z.text() == "2.4"
+    assert not w.document.undo_stack.canUndo()
+    # text that is not a number is refused the same way
+    type_into(size_z, "abc")
+    assert len(w.prompts.errors()) == 2 and "not a number" in w.prompts.errors()[1]
+    assert w.document.model_dict() == before
+
+
+def test_add_heat_load_and_edit_its_profile(main_window):
+    w = main_window
+    w.item_tree.select("parts", w.document.model.part_index("regulator"))
+    n = len(w.document.model.heat_loads)
+    w.actions_["add_load"].trigger()
+    loads = w.document.model.heat_loads
+    assert len(loads) == n + 1 and loads[-1].part == "regulator"
+    assert w.item_tree.current() == ("heat_loads", n)
+    form = w.properties.forms["heat_loads"]
+    type_into(form.profile.fields["constant"]["value"].edit, "2.5")
+    assert w.document.model.heat_loads[n].profile.value == 2.5
+    xs, ys = form.profile.curve.getData()
+    assert max(ys) == 2.5 and xs[-1] == w.document.model.run.duration_s
+    # switch to a repeating pulse: the preview shows both levels
+    form.profile.kind.setCurrentIndex(2)
+    prof = w.document.model.heat_loads[n].profile
+    assert prof.type == "pulse" and prof.high == 2.5
+    xs, ys = form.profile.curve.getData()
+    assert set(ys) == {prof.high, prof.low}
+    w.actions_["undo"].trigger()
+    w.actions_["undo"].trigger()
+    assert w.document.model.heat_loads[n].profile.value == 1.0
+    w.actions_["undo"].trigger()
+    assert len(w.document.model.heat_loads) == n
+
+
+def test_duplicate_rename_delete_are_undoable(main_window):
+    w = main_window
+    m = w.document.model
+    i = m.part_index("radio module")
+    w.item_tree.select("parts", i)
+    w.actions_["duplicate"].trigger()
+    assert w.document.model.parts[i + 1].name == "radio module copy"
+    assert w.item_tree.current() == ("parts", i + 1)
+    name_field = w.properties.forms["parts"].name
+    type_into(name_field, "radio module B")
+    assert w.document.model.parts[i + 1].name == "radio module B"
+    # renaming to an existing name is refused, naming the field
+    type_into(name_field, "regulator")
+    assert "duplicate part name" in w.prompts.errors()[-1]
+    assert w.document.model.parts[i + 1].name == "radio module B"
+    # deleting the original takes its heat load along; undo brings both back
+    w.item_tree.select("parts", i)
+    w.actions_["delete"].trigger()
+    assert "radio module" not in [p.name for p in w.document.model.parts]
+    assert [h.part for h in w.document.model.heat_loads] == ["regulator"]
+    w.actions_["undo"].trigger()
+    assert [h.part for h in w.document.model.heat_loads] == ["radio module", "regulator"]
+    assert w.document.model.parts[i].name == "radio module"
+
+
+def test_material_picker_offers_library(main_window):
+    w = main_window
+    w.item_tree.select("parts", w.document.model.part_index("main board"))
+    picker = w.properties.forms["parts"].material
+    offered = {picker.itemData(k) for k in range(picker.count())} - {None}
+    from solver.materials import BUILTIN_MATERIALS
+    assert set(BUILTIN_MATERIALS) <= offered
+    picker.choose("copper")
+    assert part(w, "main board").material == "copper"
+    w.actions_["undo"].trigger()
+    assert part(w, "main board").material == "pcb-4layer-effective"
+
+
+def test_handle_drag_moves_part_snapped(main_window):
+    w = main_window
+    vp = w.viewport
+    w.item_tree.select("parts", w.document.model.part_index("regulator"))
+    w.snap_box.setValue(0.5)
+    # what a drag leaves in the handle frame: the box moved by (+3.3, -1.1, 0) mm
+    vp._box.PlaceWidget((78.3, 84.3, 38.9, 44.9, 11.6, 13.0))
+    vp._box.InvokeEvent("EndInteractionEvent")
+    p = part(w, "regulator")
+    assert p.origin_mm == [78.5, 39.0, 11.5]
+    assert p.size_mm == pytest.approx([6.0, 6.0, 1.5])
+    assert "Resize part 'regulator'" == w.document.undo_stack.undoText()
+    w.actions_["undo"].trigger()
+    assert part(w, "regulator").origin_mm == [75.0, 40.0, 11.6]
+
+
+def test_place_onto_face_clicked_in_view(main_window):
+    w = main_window
+    w.item_tree.select("parts", w.document.model.part_index("regulator"))
+    w.actions_["place"].trigger()
+    assert w.viewport.pick_mode == "face"
+    click_view(w, [60, 40, 40])  # the lid's top face
+    assert w.viewport.pick_mode == "select"
+    assert part(w, "regulator").origin_mm == [75.0, 40.0, 40.0]
+    assert w.viewport.selected_part == "regulator"  # the moved part stays selected
+    w.actions_["undo"].trigger()
+    assert part(w, "regulator").origin_mm == [75.0, 40.0, 11.6]
+
+
+def test_study_settings_form(main_window):
+    w = main_window
+    w.item_tree.select("study", 0)
+    f = w.properties.forms["study"]
+    step = w.document.model.run.step_s
+    type_into(f.numbers[("run", "duration_s")].edit, "900")
+    assert w.document.model.run.duration_s == 900
+    type_into(f.numbers[("run", "step_s")].edit, "1000")
+    assert "run.step_s" in w.prompts.errors()[-1]
+    assert w.document.model.run.step_s == step
+
+
+def test_marks_in_tree_and_view(main_window):
+    w = main_window
+    w.item_tree.mark_parts({"regulator"})
+    row = w.item_tree.part_row("regulator")
+    assert row.font(0).bold() and not row.icon(0).isNull()
+    assert not w.item_tree.part_row("lid").font(0).bold()
+    w.viewport.highlight_parts({"regulator"})
+    assert len(w.viewport._mark_actors) == 1
+    w.viewport.set_mode("results")
+    assert not any(a.GetVisibility() for a in w.viewport._actors.values())
+    w.viewport.set_mode("edit")
+    assert all(a.GetVisibility() for a in w.viewport._actors.values())
+
+
+def test_editing_screenshot(main_window, artifacts):
+    w = main_window
+    w.item_tree.select("parts", w.document.model.part_index("radio module"))
+    w.viewport.plotter.render()
+    QTest.qWait(100)
+    img = w.grab()
+    assert img.save(str(artifacts / "workbench-editing.png"))
+    # the 3D area is drawn: its pixels are not all one colour
+    view = w.viewport.grab().toImage()
+    colours = {view.pixel(x, y) for x in range(0, view.width(), 23) for y in range(0, view.height(), 23)}
+    assert len(colours) > 20
