@@ -62,6 +62,7 @@ class Problem:
     part_nodes: PartNodes
     part_volume: np.ndarray  # m³
     warnings: list = field(default_factory=list)
+    pattern: object = None  # assemble.GridPattern shared by every matrix above (None: general matrices)
 
     @property
     def n_nodes(self) -> int:
@@ -73,10 +74,21 @@ class Problem:
             self._shares_t = self.heat_shares.T.tocsr()
         return self._shares_t
 
+    def _shares_pattern(self) -> bool:
+        pat = self.pattern
+        return pat is not None and all(
+            m is not None and m.indptr is pat.indptr and m.indices is pat.indices
+            for m in (self.conductivity, self.convection) + ((self.capacity,) if self.capacity is not None else ()))
+
     @property
     def stiffness(self) -> sp.csr_matrix:
-        """K = conduction + convection."""
-        return self.conductivity + self.convection
+        """K = conduction + convection (computed once)."""
+        if getattr(self, "_stiffness", None) is None:
+            if self._shares_pattern():
+                self._stiffness = self.pattern.matrix(self.conductivity.data + self.convection.data)
+            else:
+                self._stiffness = (self.conductivity + self.convection).tocsr()
+        return self._stiffness
 
     @property
     def mass_matrix(self):
@@ -85,15 +97,41 @@ class Problem:
             return self.capacity
         return sp.diags(self.lumped).tocsr()
 
+    def step_matrix(self, dt: float, theta: float) -> sp.csr_matrix:
+        """M/Δt + θK in W/K, formed from the shared pattern's data arrays when possible."""
+        if self._shares_pattern():
+            data = theta * self.stiffness.data
+            if self.capacity is not None:
+                data += self.capacity.data / dt
+            else:
+                data[self.pattern.diagonal] += self.lumped / dt
+            return self.pattern.matrix(data)
+        return (self.mass_matrix / dt + theta * self.stiffness).tocsr()
+
+    # ------------------------------------------------------------ loads
+    def _load_basis(self):
+        """Sparse (N, L) matrix whose columns are the load vectors of heat loads and convection entries."""
+        if getattr(self, "_basis", None) is None:
+            cols = [self.heat_shares_t[:, [p]] for p, _ in self.heat_profiles]
+            cols += [sp.csr_matrix(b[:, None]) for b, _ in self.conv_loads]
+            n = self.n_nodes
+            self._basis = sp.hstack(cols).tocsr() if cols else sp.csr_matrix((n, 0))
+            self._conv_sum = np.array([b.sum() for b, _ in self.conv_loads])
+            self._conv_b = (np.sum([b for b, _ in self.conv_loads], axis=0) if self.conv_loads
+                            else np.zeros(n))
+        return self._basis
+
+    def load_coefficients(self, t: float, side: str = "right") -> np.ndarray:
+        """Profile values at ``t`` (W per heat load, then °C per convection entry): F = basis @ these."""
+        return np.array([prof.value(t, side) for _, prof in self.heat_profiles]
+                        + [amb.value(t, side) for _, amb in self.conv_loads], dtype=float)
+
+    def load_from_coefficients(self, c: np.ndarray) -> np.ndarray:
+        return self._load_basis() @ c
+
     def load(self, t: float, side: str = "right") -> np.ndarray:
         """F(t) in W at every node (one-sided limit at jumps)."""
-        watts = np.zeros(self.heat_shares.shape[0])
-        for p, prof in self.heat_profiles:
-            watts[p] += prof.value(t, side)
-        f = self.heat_shares_t @ watts
-        for b, amb in self.conv_loads:
-            f += amb.value(t, side) * b
-        return f
+        return self.load_from_coefficients(self.load_coefficients(t, side))
 
     def heat_input(self, t: float, side: str = "right") -> float:
         """Total heat generation in W."""
@@ -101,7 +139,14 @@ class Problem:
 
     def convected_out(self, d: np.ndarray, t: float, side: str = "right") -> float:
         """Heat leaving through convection faces, W (Σ ∫ h (T - T_amb) dA)."""
-        return float(sum(b @ d - amb.value(t, side) * b.sum() for b, amb in self.conv_loads))
+        self._load_basis()
+        amb = np.array([a.value(t, side) for _, a in self.conv_loads], dtype=float)
+        return float(self._conv_b @ d - amb @ self._conv_sum) if self.conv_loads else 0.0
+
+    def convected_out_parts(self, d: np.ndarray):
+        """(Σ b_c·d in W, Σ_c b_c.sum() per entry in W/K) so callers can reuse b·d between steps."""
+        self._load_basis()
+        return float(self._conv_b @ d), self._conv_sum
 
     def breakpoints(self, t_end: float):
         out = []
@@ -120,35 +165,57 @@ def material_arrays(model, tet_part: np.ndarray):
     return k[tet_part], rc[tet_part]
 
 
-def initial_field(model, mesh: Mesh) -> np.ndarray:
+def initial_field(model, mesh: Mesh, part_node_sets=None) -> np.ndarray:
     """Model-wide initial temperature, then each part's own on its nodes (later part wins)."""
     d0 = np.full(mesh.n_nodes, float(model.initial_c))
     for i, p in enumerate(model.parts):
         if p.initial_c is not None:
-            ids = np.unique(mesh.tets[mesh.tet_part == i])
+            ids = part_node_sets[i] if part_node_sets is not None else np.unique(mesh.tets[mesh.tet_part == i])
             d0[ids] = float(p.initial_c)
     return d0
 
 
+def part_blocks(model, mesh: Mesh) -> list:
+    """Each part's box as cell-index slices of the grid (the cells it can own)."""
+    out = []
+    for p in model.parts:
+        sl = []
+        for ax in range(3):
+            lines_mm = mesh.lines[ax] / MM
+            i0 = int(np.argmin(np.abs(lines_mm - p.origin_mm[ax])))
+            i1 = int(np.argmin(np.abs(lines_mm - (p.origin_mm[ax] + p.size_mm[ax]))))
+            sl.append(slice(i0, max(i1, i0)))
+        out.append(tuple(sl))
+    return out
+
+
 def build_problem(model, mesh: Mesh | None = None) -> Problem:
-    """Mesh (unless given) and assemble everything the stepper needs."""
+    """Mesh (unless given) and assemble everything the stepper needs.
+
+    The matrices are assembled on the structured grid's fixed CSR pattern
+    (:class:`solver.assemble.GridPattern`); all of them share it.
+    """
     mesh = mesh or build_mesh(model)
     warnings = list(mesh.warnings)
     n_parts = len(model.parts)
-    vol, grads = assemble.tet_gradients(mesh.nodes, mesh.tets)
-    k_el, rc_el = material_arrays(model, mesh.tet_part)
-    kc = assemble.conductivity_matrix(mesh.nodes, mesh.tets, k_el, vol, grads)
-    lumped = assemble.lumped_capacity(mesh.nodes, mesh.tets, rc_el, vol)
+    conv_masks = [convection_face_mask(mesh, model, i) for i in range(len(model.convection))]
+    conv_tri_all = (mesh.boundary.tris[np.logical_or.reduce(conv_masks)] if conv_masks
+                    else np.zeros((0, 3), dtype=np.int64))
+    pattern = assemble.GridPattern(mesh, full=model.run.mass == "consistent", surface_tris=conv_tri_all)
+    h_cell = assemble.cell_sizes(mesh, pattern)
+    k_cell, rc_cell = material_arrays(model, pattern.cell_part)
+    kc = pattern.matrix(assemble.grid_conductivity_data(pattern, h_cell, k_cell))
+    lumped = assemble.grid_lumped_capacity(pattern, h_cell, rc_cell)
     capacity = None
     if model.run.mass == "consistent":
-        capacity = assemble.capacity_matrix(mesh.nodes, mesh.tets, rc_el, vol)
+        capacity = pattern.matrix(assemble.grid_capacity_data(pattern, h_cell, rc_cell))
 
-    part_vol = np.bincount(mesh.tet_part, weights=vol, minlength=n_parts)
+    part_vol = np.bincount(pattern.cell_part, weights=h_cell.prod(axis=1), minlength=n_parts)
     issues = []
     for i, p in enumerate(model.parts):
         if part_vol[i] <= 0:
             warnings.append(f"part {p.name!r} is entirely covered by later parts and holds no volume")
-    shares = assemble.node_volume_shares(mesh.nodes, mesh.tets, vol, mesh.tet_part, n_parts)
+    shares = assemble.grid_volume_shares(pattern, h_cell, n_parts, part_blocks(model, mesh))
     heat_profiles = []
     for i, hl in enumerate(model.heat_loads):
         pi = model.part_index(hl.part)
@@ -162,7 +229,7 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
     convected_parts = set()
     bf = mesh.boundary
     for i, c in enumerate(model.convection):
-        mask = convection_face_mask(mesh, model, i)
+        mask = conv_masks[i]
         if not mask.any():
             warnings.append(f"convection {c.name!r} ({c.side} of {c.part!r}) covers no exposed face; it has no effect")
             continue
@@ -176,9 +243,10 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
     n = mesh.n_nodes
     if conv_tris:
         tris = np.vstack(conv_tris)
-        conv = assemble.surface_matrix(mesh.nodes, tris, np.concatenate(conv_h))
+        conv = pattern.matrix(assemble.grid_surface_data(pattern, tris, np.concatenate(conv_h),
+                                                         assemble.triangle_areas(mesh.nodes, tris)))
     else:
-        conv = sp.csr_matrix((n, n))
+        conv = pattern.matrix(np.zeros(pattern.nnz))
         warnings.append("no convection face: heat cannot leave the model, temperatures can only rise")
     if conv_tris:
         cold = isolated_parts(mesh, convected_parts)
@@ -194,9 +262,10 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
         raise ModelError(issues)
 
     # packed node sets per part
-    ids_per_part = [np.unique(mesh.tets[mesh.tet_part == i]) for i in range(n_parts)]
+    ids_per_part = [shares.indices[shares.indptr[i]:shares.indptr[i + 1]].astype(np.int64) for i in range(n_parts)]
     counts = np.array([len(x) for x in ids_per_part], dtype=np.int64)
     offsets = np.concatenate([[0], np.cumsum(counts)[:-1]]).astype(np.int64)
     index = np.concatenate(ids_per_part) if n_parts else np.zeros(0, dtype=np.int64)
-    return Problem(model, mesh, kc, conv.tocsr(), capacity, lumped, shares, heat_profiles, conv_loads, pmat,
-                   initial_field(model, mesh), PartNodes(index, offsets, counts), part_vol, warnings)
+    return Problem(model, mesh, kc, conv, capacity, lumped, shares, heat_profiles, conv_loads, pmat,
+                   initial_field(model, mesh, ids_per_part), PartNodes(index, offsets, counts), part_vol, warnings,
+                   pattern)
