@@ -22,10 +22,11 @@ CAUTION = ("Results are engineering estimates from a conduction model with assum
 class ProgressBar:
     """A one-line text progress bar on a stream, redrawn at most ten times a second."""
 
-    def __init__(self, stream=sys.stderr, width: int = 30, enabled: bool = True):
-        self.stream, self.width, self.enabled = stream, width, enabled
+    def __init__(self, stream=None, width: int = 30, enabled: bool = True):
+        self.stream = stream if stream is not None else sys.stderr
+        self.width, self.enabled = width, enabled
         self._last = 0.0
-        self._tty = bool(getattr(stream, "isatty", lambda: False)())
+        self._tty = bool(getattr(self.stream, "isatty", lambda: False)())
         self._last_decile = -1
 
     def update(self, ev, force: bool = False) -> None:
@@ -56,8 +57,10 @@ class ProgressBar:
 
 
 def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str = "auto",
-                    stream=sys.stdout, err=sys.stderr) -> int:
-    """Run a model file and write results; returns the exit status."""
+                    stream=None, err=None) -> int:
+    """Run a model file and write results; returns the exit status (streams default to stdout/stderr)."""
+    stream = stream if stream is not None else sys.stdout
+    err = err if err is not None else sys.stderr
     t0 = time.perf_counter()
     try:
         model = load_model(model_path)

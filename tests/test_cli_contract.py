@@ -114,9 +114,6 @@ def test_missing_file_and_broken_json_through_the_command(tmp_path):
     assert not out.exists()
 
 
-@pytest.mark.xfail(strict=True, reason="solver/cli.py binds stream=sys.stdout, err=sys.stderr as default "
-                   "arguments at import time (lines 25 and 59), so thermgui.cli.main() ignores a later "
-                   "sys.stderr redirection (pytest capsys, contextlib.redirect_stderr, an app log pane)")
 def test_main_writes_errors_to_the_current_stderr(tmp_path, capsys):
     import thermgui.cli
 
