@@ -38,9 +38,10 @@ def blank_model() -> Model:
 class ModelDocument(QObject):
     """Model + path + undo stack. Signals: ``changed`` after every model change,
     ``selectRequested(kind, index)`` to show the item an edit/undo touched (index -1: none),
-    ``pathChanged``, ``dirtyChanged(bool)``."""
+    ``replaced`` after new/open/recover (after ``changed``), ``pathChanged``, ``dirtyChanged(bool)``."""
 
     changed = Signal()
+    replaced = Signal()
     selectRequested = Signal(str, int)
     pathChanged = Signal()
     dirtyChanged = Signal(bool)
@@ -107,6 +108,7 @@ class ModelDocument(QObject):
         self.undo_stack.setClean()
         self.pathChanged.emit()
         self.changed.emit()
+        self.replaced.emit()
         self.dirtyChanged.emit(self.dirty)
 
     def mark_saved(self, path: Path) -> None:

@@ -99,9 +99,11 @@ class ItemTree(QTreeWidget):
         return g.child(index)
 
     def select(self, kind: str, index: int, emit: bool = True) -> None:
-        """Select the row of ``(kind, index)`` (clears the selection if there is none)."""
+        """Select the row of ``(kind, index)`` (clears the selection if there is none);
+        ``itemChosen`` fires once, and only if the selection really changed."""
         row = self.row(kind, index)
-        self.blockSignals(not emit)
+        before = self.current()
+        self.blockSignals(True)
         try:
             self.clearSelection()
             if row is not None:
@@ -110,6 +112,9 @@ class ItemTree(QTreeWidget):
                 self.scrollToItem(row)
         finally:
             self.blockSignals(False)
+        after = self.current()
+        if emit and after != before:
+            self._on_selection()
 
     def select_part(self, name: str, emit: bool = True) -> None:
         g = self._groups["parts"]

@@ -50,16 +50,20 @@ class MainWindow(QMainWindow):
         left.addWidget(self.properties)
         left.setStretchFactor(0, 2)
         left.setStretchFactor(1, 3)
-        left.setSizes([300, 480])
+        left.setSizes([320, 520])
         self.left_panel = left
-        split = QSplitter(Qt.Horizontal)
-        split.addWidget(left)
-        split.addWidget(self.viewport)
-        split.setStretchFactor(1, 1)
-        split.setSizes([380, 980])
-        split.setChildrenCollapsible(False)
-        left.setMinimumWidth(320)
-        self.setCentralWidget(split)
+        left.setMinimumWidth(330)
+        self.setCentralWidget(self.viewport)
+        # the model panel owns the left edge from top to bottom; docks added later (results)
+        # sit under the 3D view, not under the forms
+        self.setCorner(Qt.TopLeftCorner, Qt.LeftDockWidgetArea)
+        self.setCorner(Qt.BottomLeftCorner, Qt.LeftDockWidgetArea)
+        self.model_dock = QDockWidget("Model", self)
+        self.model_dock.setObjectName("dock_model")
+        self.model_dock.setFeatures(QDockWidget.DockWidgetMovable | QDockWidget.DockWidgetFloatable)
+        self.model_dock.setWidget(left)
+        self.addDockWidget(Qt.LeftDockWidgetArea, self.model_dock)
+        self.resizeDocks([self.model_dock], [380], Qt.Horizontal)
         self.status_text = QLabel()
         self.statusBar().addPermanentWidget(self.status_text)
 
@@ -73,6 +77,7 @@ class MainWindow(QMainWindow):
         # ---- wiring
         d = self.document
         d.changed.connect(self._model_changed)
+        d.replaced.connect(self.viewport.frame_new_model)
         d.selectRequested.connect(self._select_requested)
         d.pathChanged.connect(self._update_title)
         d.dirtyChanged.connect(lambda _dirty: self._update_title())

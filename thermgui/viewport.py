@@ -95,6 +95,8 @@ class Viewport(QWidget):
         self.see_through = False
         self._parts: list[dict] = []  # name, material, origin_mm, size_mm
         self._actors: dict[str, object] = {}
+        self._signatures: dict[str, tuple] = {}  # name -> (bounds, colour) the actor was drawn with
+        self._frame_key = None
         self._select_actor = None
         self._mark_actors: list = []
         self._marked: set[str] = set()
@@ -102,12 +104,13 @@ class Viewport(QWidget):
         self._caption = None
         self._press = None
         self._camera_set = False
+        self._camera_touched = False
         self._box = vtkBoxWidget()
         self._box.SetInteractor(self.plotter.iren.interactor)
         self._box.SetCurrentRenderer(self.plotter.renderer)
         self._box.SetPlaceFactor(1.0)
         self._box.SetRotationEnabled(False)
-        self._box.SetHandleSize(0.006)
+        self._box.SetHandleSize(0.008)
         self._box.GetOutlineProperty().SetColor(pv.Color(SELECT_COLOUR).float_rgb)
         self._box.GetOutlineProperty().SetLineWidth(2)
         self._box.GetHandleProperty().SetColor(pv.Color(SELECT_COLOUR).float_rgb)
@@ -128,14 +131,19 @@ class Viewport(QWidget):
         self._parts = [{"name": p.name, "material": p.material, "origin_mm": list(p.origin_mm),
                         "size_mm": list(p.size_mm)} for p in model.parts]
         names = {p["name"] for p in self._parts}
+        wanted = {p["name"]: (self._bounds(p), material_colour(p["material"])) for p in self._parts}
         for name in list(self._actors):
-            self.plotter.remove_actor(self._actors.pop(name), render=False)
-        for p in self._parts:
-            box = pv.Box(bounds=self._bounds(p))
-            actor = self.plotter.add_mesh(box, color=material_colour(p["material"]), show_edges=True,
+            if name not in wanted or self._signatures.get(name) != wanted[name]:
+                self.plotter.remove_actor(self._actors.pop(name), render=False)
+                self._signatures.pop(name, None)
+        for name, (bounds, colour) in wanted.items():
+            if name in self._actors:
+                continue  # unchanged box: keep its actor
+            actor = self.plotter.add_mesh(pv.Box(bounds=bounds), color=colour, show_edges=True,
                                           edge_color="#2b2f36", line_width=1, smooth_shading=False,
-                                          name=f"part::{p['name']}", render=False, pickable=False)
-            self._actors[p["name"]] = actor
+                                          name=f"part::{name}", render=False, pickable=False)
+            self._actors[name] = actor
+            self._signatures[name] = (bounds, colour)
         if self._selected not in names:
             self._selected = None
         self.hidden_parts &= names
@@ -143,7 +151,7 @@ class Viewport(QWidget):
         self._apply_visibility()
         self._update_selection_graphics()
         self._update_marks()
-        if not self._camera_set and self._parts:
+        if not self._camera_set and self._parts and self.isVisible():
             self.reset_camera()
             self._camera_set = True
         self.refresh()
@@ -167,21 +175,25 @@ class Viewport(QWidget):
             actor.GetProperty().SetOpacity(0.25 if see_through else 1.0)
 
     def _update_selection_graphics(self) -> None:
-        if self._select_actor is not None:
-            self.plotter.remove_actor(self._select_actor, render=False)
-            self._select_actor = None
         p = self._part(self._selected) if self._selected else None
-        show_handles = p is not None and self.mode == "edit" and self.handles_enabled \
-            and self._selected not in self.hidden_parts
-        if p is not None and self.mode == "edit" and self._selected not in self.hidden_parts:
-            outline = pv.Box(bounds=self._bounds(p)).extract_feature_edges()
-            self._select_actor = self.plotter.add_mesh(outline, color=SELECT_COLOUR, line_width=4,
-                                                       name="selection::frame", render=False, pickable=False)
-        if show_handles:
-            self._box.PlaceWidget(self._bounds(p))
-            self._box.On()
-        else:
-            self._box.Off()
+        shown = p is not None and self.mode == "edit" and self._selected not in self.hidden_parts
+        key = (self._bounds(p), self.handles_enabled) if shown else None
+        if key != self._frame_key:
+            self._frame_key = key
+            if self._select_actor is not None:
+                self.plotter.remove_actor(self._select_actor, render=False)
+                self._select_actor = None
+            if shown:
+                outline = pv.Box(bounds=self._bounds(p)).extract_feature_edges()
+                self._select_actor = self.plotter.add_mesh(outline, color=SELECT_COLOUR, line_width=4,
+                                                           name="selection::frame", render=False,
+                                                           pickable=False)
+            if shown and self.handles_enabled:
+                self._box.PlaceWidget(self._bounds(p))
+                if not self._box.GetEnabled():
+                    self._box.On()
+            elif self._box.GetEnabled():
+                self._box.Off()
         self._set_caption()
 
     def _set_caption(self) -> None:
@@ -207,6 +219,18 @@ class Viewport(QWidget):
             outline = pv.Box(bounds=self._bounds(p)).extract_feature_edges()
             self._mark_actors.append(self.plotter.add_mesh(outline, color=MARK_COLOUR, line_width=6,
                                                            name=f"mark::{i}", render=False, pickable=False))
+
+    def showEvent(self, event):
+        super().showEvent(event)
+        if not self._camera_set and self._parts:
+            self.reset_camera()  # first fit once the widget has its real size
+            self._camera_set = True
+
+    def resizeEvent(self, event):
+        super().resizeEvent(event)
+        # keep the model framed while the window settles, until the user moves the camera
+        if self._camera_set and not self._camera_touched:
+            self.reset_camera()
 
     # ------------------------------------------------------------ public API
     def select_part(self, name: str | None) -> None:
@@ -256,12 +280,45 @@ class Viewport(QWidget):
         self._update_selection_graphics()
         self.refresh()
 
+    def frame_new_model(self) -> None:
+        """Fit the camera to a model that replaced the previous one (new/open)."""
+        self._camera_touched = False
+        if self.isVisible():
+            self.reset_camera()
+            self._camera_set = True
+        else:
+            self._camera_set = False
+
     def reset_camera(self, direction: str = "iso") -> None:
         """Look at all parts from ``direction``: "iso", "top", "front" or "side"."""
         {"iso": self.plotter.view_isometric, "top": self.plotter.view_xy, "front": self.plotter.view_xz,
          "side": self.plotter.view_yz}[direction](render=False)
         self.plotter.reset_camera(render=False)
+        self._fill_view(0.85)
         self.refresh()
+
+    def _fill_view(self, fraction: float) -> None:
+        """Zoom so the parts' bounding box spans ``fraction`` of the view's width or height
+        (the reset alone frames the bounding sphere and leaves wide margins)."""
+        if not self._parts or self.plotter.width() < 10 or self.plotter.height() < 10:
+            return
+        lo = np.min([p["origin_mm"] for p in self._parts], axis=0)
+        hi = np.max([np.add(p["origin_mm"], p["size_mm"]) for p in self._parts], axis=0)
+        ratio = self.plotter.devicePixelRatioF()
+        w, h = int(self.plotter.width() * ratio), int(self.plotter.height() * ratio)
+        if tuple(self.plotter.ren_win.GetSize()) != (w, h):
+            self.plotter.ren_win.SetSize(w, h)  # the widget may not have told VTK its new size yet
+        ren = self.plotter.renderer
+        xs, ys = [], []
+        for corner in np.array(np.meshgrid(*zip(lo, hi))).reshape(3, -1).T:
+            ren.SetWorldPoint(*corner, 1.0)
+            ren.WorldToDisplay()
+            x, y, _ = ren.GetDisplayPoint()
+            xs.append(x)
+            ys.append(y)
+        span = max((max(xs) - min(xs)) / max(w, 1), (max(ys) - min(ys)) / max(h, 1))
+        if span > 0:
+            self.plotter.camera.zoom(fraction / span)
 
     def screen_position(self, point_mm) -> tuple[int, int]:
         """Widget pixel (x from the left, y from the top) where a 3D point (mm) is drawn."""
@@ -319,6 +376,8 @@ class Viewport(QWidget):
 
     def eventFilter(self, obj, event):
         t = event.type()
+        if t in (QEvent.MouseButtonPress, QEvent.Wheel):
+            self._camera_touched = True
         if t in (QEvent.MouseButtonPress, QEvent.MouseButtonDblClick) and event.button() == Qt.LeftButton:
             self._press = event.position()
         elif t == QEvent.MouseButtonRelease and event.button() == Qt.LeftButton and self._press is not None:
