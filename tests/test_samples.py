@@ -1,0 +1,269 @@
+"""Every bundled sample runs headless to its end and its results pass physical sanity checks.
+
+Each sample is run once (module-scoped fixture) through :class:`solver.session.RunSession`,
+the same path ``thermgui solve`` takes, writing its result files to a temporary folder. The
+checks use only the model file and the step stream:
+
+* energy: heat generated (integrated here from the model file's profiles, not from the
+  solver's) = heat stored (from each part's mean temperature times ρ·c·volume of its box,
+  with ρ·c from the material table) + heat convected out (from the step stream), and the
+  per-step residual the solver reports is at round-off;
+* bounds from the comparison (maximum) principle for the heat equation with non-negative
+  sources and Robin boundaries (Evans, Partial Differential Equations, §7.1.4, weak maximum
+  principle for parabolic equations, from memory): no temperature below the coldest of the
+  initial and ambient temperatures; and, writing T ≤ T_ref + w with w the response to the
+  sources alone from zero (w ≥ 0, ∫ρc·w dV ≤ energy generated so far), the capacity-weighted
+  mean of the whole model, and of each part, stays below T_ref + E_in(t) / C (C of the whole
+  model, or of that part). T_ref is the hottest of the initial and ambient temperatures.
+  (A part's *maximum* is not bounded by such an average: a small hot die may well exceed it.)
+* the story each sample tells: the power stage's Q2 die exceeds its rating during the run
+  and nothing else does; the radio box stays within ratings with the radio module closest;
+  the tracker's part with the least margin changes from the charger IC to the battery.
+"""
+from __future__ import annotations
+
+import csv
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from solver.model import load_model
+from solver.session import RunSession
+
+ROOT = Path(__file__).resolve().parent.parent
+SAMPLES = sorted((ROOT / "samples").glob("*.json"))
+MM3 = 1e-9  # m³ per mm³
+
+# Discrete solutions on graded grids with Crank–Nicolson may undershoot a little where the
+# continuous problem cannot; a hundredth of a kelvin is far below any engineering meaning.
+UNDERSHOOT_TOL_K = 0.01
+
+# What each sample is built to show (see its "title").
+STORY = {
+    "outdoor_radio_box.json": {"over": set(), "least_margin_at": [(1800.0, "radio module")]},
+    "compact_power_stage.json": {"over": {"Q2 die"}, "least_margin_at": [(600.0, "Q2 die")]},
+    # end of full-current charging, then the end of the warm afternoon
+    "handheld_tracker.json": {"over": set(), "least_margin_at": [(2700.0, "charger IC"), (14400.0, "battery")]},
+}
+
+
+# ------------------------------------------------------------------ profiles, from the file
+def profile_integral(p: dict, t_end: float) -> float:
+    """∫₀^t_end of a model-file profile (W → J), from the format's definition (NOTES §3)."""
+    kind = p["type"]
+    if kind == "constant":
+        return p["value"] * t_end
+    if kind == "step":
+        return p["value"] * max(0.0, t_end - p.get("start_s", 0.0))
+    if kind == "pulse":
+        start, period, duty = p.get("start_s", 0.0), p["period_s"], p["duty"]
+        high, low = p["high"], p.get("low", 0.0)
+        before = low * min(t_end, start)
+        span = max(0.0, t_end - start)
+        full = math.floor(span / period)
+        rest = span - full * period
+        on = full * duty * period + min(rest, duty * period)
+        return before + high * on + low * (span - on)
+    if kind == "table":  # first value before the first point, last after the last, linear between
+        t_pts = np.array([q[0] for q in p["points"]])
+        v_pts = np.array([q[1] for q in p["points"]])
+        knots = np.unique(np.concatenate([[0.0, t_end], t_pts[(t_pts > 0) & (t_pts < t_end)]]))
+        return float(np.trapezoid(np.interp(knots, t_pts, v_pts), knots))  # exact: linear between knots
+    raise ValueError(kind)
+
+
+def profile_levels(p) -> list[float]:
+    if isinstance(p, (int, float)):
+        return [float(p)]
+    if p["type"] in ("constant", "step"):
+        return [p["value"]] + ([0.0] if p["type"] == "step" and p.get("start_s", 0.0) > 0 else [])
+    if p["type"] == "pulse":
+        return [p["high"], p.get("low", 0.0)]
+    return [v for _, v in p["points"]]
+
+
+def reference_temperatures(data: dict) -> tuple[float, float]:
+    """(coldest, hottest) of the initial temperatures and every ambient the model uses."""
+    temps = [data.get("initial_c", 25.0)] + [p["initial_c"] for p in data["parts"] if "initial_c" in p]
+    default_amb = data.get("ambient_c", 25.0)
+    for c in data.get("convection", []):
+        temps += profile_levels(c["ambient_c"]) if "ambient_c" in c else [default_amb]
+    return min(temps), max(temps)
+
+
+def part_capacities(data: dict, model) -> np.ndarray:
+    """ρ·c·V of each part's box in J/K (the samples have no overlapping boxes)."""
+    table = model.material_table()
+    return np.array([table[p["material"]].volumetric_heat_capacity * np.prod(p["size_mm"]) * MM3
+                     for p in data["parts"]])
+
+
+# ------------------------------------------------------------------ one run per sample
+class Observed:
+    """What the checks need from one complete run."""
+
+    def __init__(self, path: Path, out_dir: Path):
+        self.path = path
+        self.data = json.loads(path.read_text(encoding="utf-8"))
+        self.model = load_model(path)
+        self.out_dir = out_dir
+        session = RunSession(self.model, out_dir)
+        self.problem = session.problem
+        self.duration = float(self.model.run.duration_s)
+        times, field_min, part_mean, part_max = [], [], [], []
+        e_out = 0.0
+        for ev in session.events():
+            times.append(ev.time_s)
+            field_min.append(float(ev.field.min()))
+            part_mean.append(np.array(ev.part_mean))
+            part_max.append(np.array(ev.part_max))
+            e_out += ev.convected_out_w * ev.dt
+        self.complete = session.complete
+        self.rows = {r.part: r for r in session.finish()}
+        self.times = np.array(times)
+        self.field_min = np.array(field_min)
+        self.part_mean = np.array(part_mean)
+        self.part_max = np.array(part_max)
+        self.e_out = e_out
+        self.rel_residual = session.recorder.relative_energy_residual
+        self.capacity = part_capacities(self.data, self.model)
+        self.cold_ref, self.hot_ref = reference_temperatures(self.data)
+
+    def energy_in(self, t: float) -> float:
+        return sum(profile_integral(hl["profile"], t) for hl in self.data.get("heat_loads", []))
+
+
+@pytest.fixture(scope="module", params=[p.name for p in SAMPLES])
+def observed(request, tmp_path_factory) -> Observed:
+    path = ROOT / "samples" / request.param
+    return Observed(path, tmp_path_factory.mktemp(path.stem))
+
+
+# ------------------------------------------------------------------ the checks
+def test_there_are_samples_and_the_default_is_one_of_them():
+    from thermgui.cli import default_sample
+
+    names = {p.name for p in SAMPLES}
+    assert len(names) >= 3, names
+    assert default_sample().name in names
+    assert set(STORY) <= names, "a sample this file describes is missing"
+
+
+@pytest.mark.parametrize("path", SAMPLES, ids=[p.name for p in SAMPLES])
+def test_sample_is_a_valid_model_of_invented_scenario(path):
+    model = load_model(path)  # raises ModelError naming the field if not
+    assert "invented" in model.title.lower(), "every sample says in its title that it is invented"
+    assert model.heat_loads and model.convection
+    assert any(p.rated_c is not None for p in model.parts)
+
+
+def test_runs_to_the_end_and_writes_results(observed):
+    assert observed.complete
+    assert observed.times[0] == 0.0 and observed.times[-1] == pytest.approx(observed.duration)
+    for name in ("peaks.csv", "history.csv", "run.json", "field.pvd"):
+        assert (observed.out_dir / name).is_file(), name
+    with open(observed.out_dir / "peaks.csv", newline="", encoding="utf-8") as fh:
+        rows = {r["part"]: r for r in csv.DictReader(fh)}
+    assert set(rows) == {p["name"] for p in observed.data["parts"]}
+    for name, row in observed.rows.items():
+        assert rows[name]["status"] == row.status
+        assert float(rows[name]["peak_c"]) == pytest.approx(row.peak_c, abs=1e-3)
+
+
+def test_energy_balance(observed):
+    assert observed.rel_residual < 1e-9
+    # the samples' boxes do not overlap, so each part holds its whole box
+    vol_mm3 = np.array([np.prod(p["size_mm"]) for p in observed.data["parts"]])
+    assert observed.problem.part_volume / MM3 == pytest.approx(vol_mm3, rel=1e-9)
+    e_in = observed.energy_in(observed.duration)
+    stored = float(observed.capacity @ (observed.part_mean[-1] - observed.part_mean[0]))
+    assert e_in > 0
+    assert stored + observed.e_out == pytest.approx(e_in, rel=1e-6)
+
+
+def test_nothing_colder_than_the_coldest_start_or_ambient(observed):
+    assert observed.field_min.min() >= observed.cold_ref - UNDERSHOOT_TOL_K
+
+
+def test_mean_temperatures_within_the_energy_bound(observed):
+    e_in = np.array([observed.energy_in(t) for t in observed.times])
+    c_total = observed.capacity.sum()
+    whole_mean = observed.part_mean @ observed.capacity / c_total
+    assert np.all(whole_mean <= observed.hot_ref + e_in / c_total + 1e-6)
+    part_bound = observed.hot_ref + e_in[:, None] / observed.capacity[None, :]
+    assert np.all(observed.part_mean <= part_bound + 1e-6)
+    # and the model did heat up: the bound is not met trivially
+    assert observed.part_max[-1].max() > observed.part_max[0].max() + 1.0
+
+
+def test_rated_parts_reported_as_the_sample_intends(observed):
+    story = STORY.get(observed.path.name)
+    if story is None:
+        pytest.skip(f"no story recorded here for {observed.path.name}")
+    over = {name for name, r in observed.rows.items() if r.status == "over"}
+    assert over == story["over"]
+    for name in story["over"]:
+        r = observed.rows[name]
+        assert 0.0 < r.first_over_s < observed.duration
+        assert r.peak_c > r.rated_c and r.margin_k < 0
+        i = observed.model.part_index(name)
+        k = int(np.searchsorted(observed.times, r.first_over_s))
+        # the part's maximum is below its rating before the reported time and above after
+        assert observed.part_max[:k, i].max() <= r.rated_c + 1e-9
+        assert observed.part_max[k:, i].max() > r.rated_c
+    rated = [i for i, p in enumerate(observed.model.parts) if p.rated_c is not None]
+    ratings = np.array([observed.model.parts[i].rated_c for i in rated])
+    margin = ratings[None, :] - observed.part_max[:, rated]
+    least = [observed.model.parts[rated[j]].name for j in margin.argmin(axis=1)]
+    for t, name in story["least_margin_at"]:
+        k = int(np.argmin(np.abs(observed.times - t)))
+        assert observed.times[k] == pytest.approx(t)
+        assert least[k] == name, f"least margin at {t:g} s: {least[k]}, expected {name}"
+
+
+@pytest.mark.gui
+@pytest.mark.parametrize("path", SAMPLES, ids=[p.name for p in SAMPLES])
+def test_sample_opens_in_the_app(path, qtbot, tmp_path, monkeypatch):
+    import pyvista as pv
+
+    from thermgui.app import open_window
+
+    monkeypatch.setenv("THERMGUI_STATE_DIR", str(tmp_path / "state"))
+    (tmp_path / "state").mkdir()
+    pv.global_theme.multi_samples = 0
+
+    class Prompts:
+        """Records messages; answers every question with its last choice (cancel / no)."""
+
+        def __init__(self):
+            self.messages = []
+
+        def error(self, title, text):
+            self.messages.append(("error", title, text))
+
+        def info(self, title, text):
+            self.messages.append(("info", title, text))
+
+        def ask(self, title, text, choices=("yes", "no")):
+            self.messages.append(("ask", title, text))
+            return choices[-1]
+
+        def open_path(self, title, start=""):
+            return ""
+
+        save_path = image_path = open_path
+
+    prompts = Prompts()
+    window = open_window(path, prompts=prompts, auto_update=False, autosave_s=0)
+    qtbot.addWidget(window)
+    try:
+        qtbot.waitExposed(window)
+        assert [m for m in prompts.messages if m[0] == "error"] == []
+        assert window.document.path is not None and Path(window.document.path).resolve() == path.resolve()
+        assert window.document.model.title == load_model(path).title
+        assert len(window.document.model.parts) == len(load_model(path).parts)
+    finally:
+        window.shutdown()
