@@ -305,6 +305,12 @@ class MainWindow(QMainWindow):
 
     def _sync_view_selection(self):
         self.viewport.select_part(self.selected_part_name())
+        sel = self.selection()
+        if sel and sel[0] == "convection" and sel[1] >= 0:
+            c = self.document.model.convection[sel[1]]
+            self.viewport.show_face(c.part, c.side)
+        else:
+            self.viewport.show_face(None)
 
     def _select_requested(self, kind, index):
         self.item_tree.select(kind, index)

@@ -34,6 +34,8 @@ FAMILY_COLOURS = [
     (("air",), "#bfe3ea"),
 ]
 OTHER_COLOUR = "#b08fc7"
+PROBE_COLOUR = "#1f4fd1"
+FACE_COLOUR = "#2aa5c9"
 SELECT_COLOUR = "#ffb000"
 MARK_COLOUR = "#d0103a"
 BACKGROUND_BOTTOM = "#e9edf2"
@@ -97,6 +99,11 @@ class Viewport(QWidget):
         self._actors: dict[str, object] = {}
         self._signatures: dict[str, tuple] = {}  # name -> (bounds, colour) the actor was drawn with
         self._frame_key = None
+        self._probes: list[tuple[str, tuple]] = []
+        self._probe_actor = None
+        self._probe_key = None
+        self._face = None  # (part, side) shown as a convection face
+        self._face_actor = None
         self._select_actor = None
         self._mark_actors: list = []
         self._marked: set[str] = set()
@@ -130,6 +137,7 @@ class Viewport(QWidget):
         """Redraw all parts of ``model`` (a solver.model.Model), keeping camera and selection."""
         self._parts = [{"name": p.name, "material": p.material, "origin_mm": list(p.origin_mm),
                         "size_mm": list(p.size_mm)} for p in model.parts]
+        self._probes = [(pr.name, tuple(pr.at_mm)) for pr in model.probes]
         names = {p["name"] for p in self._parts}
         wanted = {p["name"]: (self._bounds(p), material_colour(p["material"])) for p in self._parts}
         for name in list(self._actors):
@@ -151,6 +159,8 @@ class Viewport(QWidget):
         self._apply_visibility()
         self._update_selection_graphics()
         self._update_marks()
+        self._update_probes()
+        self._update_face()
         if not self._camera_set and self._parts and self.isVisible():
             self.reset_camera()
             self._camera_set = True
@@ -232,7 +242,62 @@ class Viewport(QWidget):
         if self._camera_set and not self._camera_touched:
             self.reset_camera()
 
+    def _model_size(self) -> float:
+        if not self._parts:
+            return 1.0
+        lo = np.min([p["origin_mm"] for p in self._parts], axis=0)
+        hi = np.max([np.add(p["origin_mm"], p["size_mm"]) for p in self._parts], axis=0)
+        return float(np.linalg.norm(hi - lo)) or 1.0
+
+    def _update_probes(self) -> None:
+        key = (tuple(self._probes), self.mode, round(self._model_size(), 6))
+        if key == self._probe_key:
+            return
+        self._probe_key = key
+        if self._probe_actor is not None:
+            self.plotter.remove_actor(self._probe_actor, render=False)
+            self._probe_actor = None
+        if self._probes and self.mode == "edit":
+            r = 0.008 * self._model_size()
+            balls = pv.merge([pv.Sphere(radius=r, center=at, theta_resolution=12, phi_resolution=12)
+                              for _, at in self._probes])
+            self._probe_actor = self.plotter.add_mesh(balls, color=PROBE_COLOUR, name="probes::balls",
+                                                      render=False, pickable=False)
+
+    def _update_face(self) -> None:
+        if self._face_actor is not None:
+            self.plotter.remove_actor(self._face_actor, render=False)
+            self._face_actor = None
+        p = self._part(self._face[0]) if self._face else None
+        if p is None or self.mode != "edit":
+            return
+        side = self._face[1]
+        lo = np.array(p["origin_mm"], float)
+        hi = lo + np.array(p["size_mm"], float)
+        pad = 0.004 * self._model_size()
+        if side == "exposed":
+            b = pv.Box(bounds=(lo[0] - pad, hi[0] + pad, lo[1] - pad, hi[1] + pad, lo[2] - pad, hi[2] + pad))
+            self._face_actor = self.plotter.add_mesh(b, color=FACE_COLOUR, opacity=0.35, name="face::overlay",
+                                                     render=False, pickable=False)
+            return
+        a = "xyz".index(side[0])
+        b, c = [k for k in range(3) if k != a]
+        plane = hi[a] + pad if side[1] == "+" else lo[a] - pad
+        pts = np.zeros((4, 3))
+        pts[:, a] = plane
+        pts[:, b] = [lo[b], hi[b], hi[b], lo[b]]
+        pts[:, c] = [lo[c], lo[c], hi[c], hi[c]]
+        quad = pv.PolyData(pts, faces=[4, 0, 1, 2, 3])
+        self._face_actor = self.plotter.add_mesh(quad, color=FACE_COLOUR, opacity=0.75, name="face::overlay",
+                                                 render=False, pickable=False)
+
     # ------------------------------------------------------------ public API
+    def show_face(self, part: str | None, side: str | None = None) -> None:
+        """Tint a convection face (``side`` of ``part``; "exposed" tints the whole part); None clears."""
+        self._face = (part, side) if part else None
+        self._update_face()
+        self.refresh()
+
     def select_part(self, name: str | None) -> None:
         """Show ``name`` as selected (None clears); does not emit ``partClicked``."""
         self._selected = name if name and self._part(name) else None
@@ -251,6 +316,8 @@ class Viewport(QWidget):
         self.mode = mode
         self._apply_visibility()
         self._update_selection_graphics()
+        self._update_probes()
+        self._update_face()
         self.refresh()
 
     def highlight_parts(self, names) -> None:

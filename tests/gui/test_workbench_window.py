@@ -230,6 +230,22 @@ def test_marks_in_tree_and_view(main_window):
     assert all(a.GetVisibility() for a in w.viewport._actors.values())
 
 
+def test_probes_and_convection_faces_are_drawn(main_window):
+    w = main_window
+    m = w.document.model
+    assert w.viewport._probe_actor is not None
+    assert w.viewport._probe_actor.GetMapper().GetInput().n_points > 0
+    i = next(k for k, c in enumerate(m.convection) if c.side == "z+")
+    w.item_tree.select("convection", i)
+    quad = w.viewport._face_actor.GetMapper().GetInput()
+    p = m.parts[m.part_index(m.convection[i].part)]
+    # the tint lies on the part's top plane (a hair above it) and covers its footprint
+    assert quad.bounds[4] == pytest.approx(p.origin_mm[2] + p.size_mm[2], abs=1.0)
+    assert quad.bounds[1] - quad.bounds[0] == pytest.approx(p.size_mm[0])
+    w.item_tree.select("parts", 0)
+    assert w.viewport._face_actor is None
+
+
 def test_editing_screenshot(main_window, artifacts):
     w = main_window
     w.item_tree.select("parts", w.document.model.part_index("radio module"))

@@ -25,6 +25,7 @@ class PropertyPanel(QWidget):
         lay = QVBoxLayout(self)
         lay.setContentsMargins(0, 0, 0, 0)
         self.title = QLabel()
+        self.title.setWordWrap(True)
         self.title.setStyleSheet("font-weight: bold; padding: 4px 6px; background: #dfe5ec; color: #1d2733;")
         lay.addWidget(self.title)
         self.stack = QStackedWidget()
@@ -49,6 +50,17 @@ class PropertyPanel(QWidget):
         self.kind, self.index = kind, index
         self.reload()
 
+    def _show(self, page) -> None:
+        """Show ``page``; the scroll area then sizes to that page, not to the tallest form."""
+        from PySide6.QtWidgets import QSizePolicy
+
+        for k in range(self.stack.count()):
+            w = self.stack.widget(k)
+            pol = QSizePolicy.Preferred if w is page else QSizePolicy.Ignored
+            w.setSizePolicy(pol, pol)
+        self.stack.setCurrentWidget(page)
+        self.stack.adjustSize()
+
     def current_form(self):
         return self.forms.get(self.kind) if self.stack.currentWidget() is not self.empty else None
 
@@ -57,11 +69,11 @@ class PropertyPanel(QWidget):
         form = self.forms.get(self.kind)
         valid = form is not None and (self.kind == "study" or 0 <= self.index < len(d.get(self.kind, [])))
         if not valid:
-            self.stack.setCurrentWidget(self.empty)
+            self._show(self.empty)
             self.title.setText("Properties")
             return
         form.index = self.index
         form.load()
-        self.stack.setCurrentWidget(form)
+        self._show(form)
         label = "" if self.kind == "study" else " · " + edits.item_label(d, self.kind, self.index)
         self.title.setText(KIND_TITLES[self.kind] + label)

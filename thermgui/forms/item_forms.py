@@ -31,8 +31,11 @@ class ItemForm(QWidget):
         super().__init__()
         self.panel = panel
         self.index = -1
-        self.layout_ = QFormLayout(self)
-        self.layout_.setContentsMargins(6, 6, 6, 6)
+        outer = QVBoxLayout(self)
+        outer.setContentsMargins(6, 6, 6, 6)
+        self.layout_ = QFormLayout()
+        outer.addLayout(self.layout_)
+        outer.addStretch(1)  # spare height goes below the fields, not between them
         self.layout_.setRowWrapPolicy(QFormLayout.DontWrapRows)
 
     @property

@@ -120,7 +120,7 @@ class ProfileEditor(QWidget):
             self._profile = dict(profile)
             kind = profile.get("type", "constant")
             self.kind.setCurrentIndex([k for k, _ in KIND_LABELS].index(kind))
-            self.pages.setCurrentIndex(self.kind.currentIndex())
+            self._show_page(self.kind.currentIndex())
             if kind == "table":
                 self.table.setRowCount(0)
                 for t, val in profile.get("points", []):
@@ -141,6 +141,16 @@ class ProfileEditor(QWidget):
             pad = 0.1 * (hi - lo) if hi > lo else max(abs(hi) * 0.1, 1.0)
             self.plot.setYRange(min(lo, 0.0) - pad * 0.2, hi + pad, padding=0)
             self.preview_note.setText(f"preview over the study's {t_end:g} s")
+
+    def _show_page(self, i: int) -> None:
+        """Show page ``i`` and let the stack take that page's height (not the tallest page's)."""
+        from PySide6.QtWidgets import QSizePolicy
+
+        for k in range(self.pages.count()):
+            pol = QSizePolicy.Preferred if k == i else QSizePolicy.Ignored
+            self.pages.widget(k).setSizePolicy(pol, pol)
+        self.pages.setCurrentIndex(i)
+        self.pages.adjustSize()
 
     # ------------------------------------------------------------ edits
     def _kind_changed(self, i):
