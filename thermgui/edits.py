@@ -134,18 +134,33 @@ def snap(value: float, step: float) -> float:
     return float(round(round(value / step) * step, 9))
 
 
-def set_box(d: dict, index: int, lower, upper, step: float = 0.0) -> dict:
-    """Give part ``index`` the box [lower, upper] (mm), corners snapped to ``step``.
+def drag_box(d: dict, index: int, lower, upper, step: float = 0.0, tol: float = 1e-6) -> dict:
+    """Apply a handle drag that left part ``index`` in the box [lower, upper] (mm).
 
-    A side that would shrink to nothing after snapping keeps one increment (or its old size)."""
+    Only what the drag moved is snapped to ``step``: a pure move (same size) snaps the
+    moved corner coordinates and keeps the size exactly; a resize snaps only the faces
+    that moved. A side that would vanish after snapping keeps one increment."""
     out = clone(d)
     part = out["parts"][index]
-    lo = [snap(v, step) for v in lower]
-    hi = [snap(v, step) for v in upper]
+    old_lo = [float(v) for v in part["origin_mm"]]
+    size = [float(v) for v in part["size_mm"]]
+    old_hi = [old_lo[a] + size[a] for a in range(3)]
+    lower, upper = [float(v) for v in lower], [float(v) for v in upper]
+    same_size = all(abs((upper[a] - lower[a]) - size[a]) <= tol for a in range(3))
+    lo, hi = list(old_lo), list(old_hi)
     for a in range(3):
-        if hi[a] - lo[a] <= 0:
-            hi[a] = lo[a] + (step if step > 0 else max(part["size_mm"][a], 1e-3))
-    part["origin_mm"] = lo
+        if same_size:
+            if abs(lower[a] - old_lo[a]) > tol:
+                lo[a] = snap(lower[a], step)
+            hi[a] = lo[a] + size[a]
+            continue
+        if abs(lower[a] - old_lo[a]) > tol:
+            lo[a] = snap(lower[a], step)
+        if abs(upper[a] - old_hi[a]) > tol:
+            hi[a] = snap(upper[a], step)
+        if hi[a] - lo[a] <= tol:
+            hi[a] = lo[a] + (step if step > 0 else size[a])
+    part["origin_mm"] = [float(round(v, 9)) for v in lo]
     part["size_mm"] = [float(round(hi[a] - lo[a], 9)) for a in range(3)]
     return out
 

@@ -390,7 +390,7 @@ class MainWindow(QMainWindow):
             i = [p["name"] for p in d["parts"]].index(name)
         except ValueError:
             return
-        new = edits.set_box(d, i, lower, upper, self.viewport.snap_mm)
+        new = edits.drag_box(d, i, lower, upper, self.viewport.snap_mm)
         old = d["parts"][i]
         moved = new["parts"][i]["size_mm"] == old["size_mm"]
         self.document.try_edit(new, f"{'Move' if moved else 'Resize'} part '{name}'", self.report,

@@ -2,9 +2,9 @@
 
 :class:`Viewport` wraps a pyvistaqt ``QtInteractor`` (``viewport.plotter``). In "edit" mode it
 draws one box per part (mm), outlines the selected part, and puts a handle frame on it; a
-finished drag is reported as ``boxEdited(name, lower_mm, upper_mm)`` with both corners snapped
-to ``snap_mm``. In "results" mode the boxes are hidden so the field can be drawn on the same
-plotter; outlines from :meth:`highlight_parts` show in both modes.
+finished drag is reported as ``boxEdited(name, lower_mm, upper_mm)``; the window snaps what
+moved to ``snap_mm``. In "results" mode the boxes are hidden so the field can be drawn on the
+same plotter; outlines from :meth:`highlight_parts` show in both modes.
 
 Picking is a ray test against the visible parts' boxes (geometry only, no numerics): the ray
 through the clicked pixel meets boxes in depth order; clicking again on the same spot steps to
@@ -20,7 +20,6 @@ from pyvistaqt import QtInteractor
 from vtkmodules.vtkInteractionWidgets import vtkBoxWidget
 from vtkmodules.vtkCommonDataModel import vtkPolyData
 
-from .edits import snap
 
 # Visual language: muted fills by material family, an amber frame for the selection,
 # a thick crimson frame for parts marked by highlight_parts (for example "over rating").
@@ -75,7 +74,8 @@ def ray_box_hits(origin, direction, lower, upper):
 class Viewport(QWidget):
     """3D view of the model's parts. Signals: ``partClicked(name)`` ('' for empty space),
     ``faceClicked(name, face)`` (every pick, with the face the ray entered),
-    ``boxEdited(name, lower_mm, upper_mm)`` after a handle drag (corners snapped)."""
+    ``boxEdited(name, lower_mm, upper_mm)`` after a handle drag (the box as dragged; the
+    window snaps what moved to ``snap_mm``, see :func:`thermgui.edits.drag_box`)."""
 
     partClicked = Signal(str)
     faceClicked = Signal(str, str)
@@ -466,8 +466,7 @@ class Viewport(QWidget):
         p = self._part(self._selected)
         if p is not None and np.allclose(b, self._bounds(p), atol=1e-9):
             return  # a click inside the frame, not a drag
-        lower = [snap(b[0], self.snap_mm), snap(b[2], self.snap_mm), snap(b[4], self.snap_mm)]
-        upper = [snap(b[1], self.snap_mm), snap(b[3], self.snap_mm), snap(b[5], self.snap_mm)]
+        lower, upper = [b[0], b[2], b[4]], [b[1], b[3], b[5]]
         self.boxEdited.emit(self._selected, lower, upper)
 
     def close_plotter(self) -> None:

@@ -62,15 +62,20 @@ def test_new_items_validate(sample):
     assert d["parts"][-1]["origin_mm"][2] == 40.0
 
 
-def test_set_box_snaps_corners(sample):
-    i = names(sample).index("regulator")
-    new = edits.set_box(sample, i, [74.6, 40.2, 11.6], [81.3, 46.9, 13.0], step=0.5)
-    p = new["parts"][i]
-    assert p["origin_mm"] == [74.5, 40.0, 11.5]
-    assert p["size_mm"] == pytest.approx([7.0, 7.0, 1.5])
-    # a side that would vanish after snapping keeps one increment
-    thin = edits.set_box(sample, i, [0.0, 0.0, 0.1], [2.0, 2.0, 0.2], step=1.0)
-    assert thin["parts"][i]["size_mm"][2] == 1.0
+def test_drag_snaps_only_what_moved(sample):
+    i = names(sample).index("regulator")  # origin (75, 40, 11.6), size (6, 6, 1.4)
+    # a move: the size is kept exactly, moved coordinates snap, z did not move and stays 11.6
+    moved = edits.drag_box(sample, i, [78.3, 38.9, 11.6], [84.3, 44.9, 13.0], step=0.5)
+    assert moved["parts"][i]["origin_mm"] == [78.5, 39.0, 11.6]
+    assert moved["parts"][i]["size_mm"] == [6.0, 6.0, 1.4]
+    # a resize of the +x face: only that face snaps; the thickness is untouched
+    grown = edits.drag_box(sample, i, [75.0, 40.0, 11.6], [83.7, 46.0, 13.0], step=1.0)
+    assert grown["parts"][i]["origin_mm"] == [75.0, 40.0, 11.6]
+    assert grown["parts"][i]["size_mm"] == pytest.approx([9.0, 6.0, 1.4])
+    # a face dragged through the opposite one keeps one increment
+    flat = edits.drag_box(sample, i, [75.0, 40.0, 11.6], [75.2, 46.0, 13.0], step=1.0)
+    assert flat["parts"][i]["size_mm"][0] == 1.0
+    parse_model(moved), parse_model(grown), parse_model(flat)
 
 
 def test_place_onto_top_face_keeps_overlapping_footprint(sample):

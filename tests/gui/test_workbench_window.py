@@ -2,8 +2,12 @@
 from __future__ import annotations
 
 import pytest
-from PySide6.QtCore import QPoint, Qt
+from PySide6.QtCore import QEvent, QPoint, QPointF, Qt
+from PySide6.QtGui import QMouseEvent
 from PySide6.QtTest import QTest
+from PySide6.QtWidgets import QApplication
+
+from thermgui import edits
 
 pytestmark = pytest.mark.gui
 
@@ -175,20 +179,55 @@ def test_material_picker_offers_library(main_window):
     assert part(w, "main board").material == "pcb-4layer-effective"
 
 
-def test_handle_drag_moves_part_snapped(main_window):
+def drag(widget, start: QPoint, end: QPoint, steps: int = 10):
+    """Press, move with the button held, release (QTest.mouseMove cannot hold a button)."""
+    def send(kind, pos, button, buttons):
+        QApplication.sendEvent(widget, QMouseEvent(kind, QPointF(pos), QPointF(widget.mapToGlobal(pos)),
+                                                   button, buttons, Qt.NoModifier))
+    send(QEvent.MouseButtonPress, start, Qt.LeftButton, Qt.LeftButton)
+    for k in range(1, steps + 1):
+        send(QEvent.MouseMove, start + (end - start) * k / steps, Qt.NoButton, Qt.LeftButton)
+    send(QEvent.MouseButtonRelease, end, Qt.LeftButton, Qt.NoButton)
+    QTest.qWait(20)
+
+
+def test_handle_drag_resizes_part_snapped(main_window):
+    w = main_window
+    vp = w.viewport
+    w.item_tree.part_row("lid").setCheckState(0, Qt.Unchecked)
+    w.item_tree.select("parts", w.document.model.part_index("main board"))
+    w.snap_box.setValue(5.0)
+    before = part(w, "main board")
+    o, s = before.origin_mm, before.size_mm
+    for _ in range(2):
+        vp.plotter.render()
+        QTest.qWait(20)
+    # grab the handle in the middle of the +x face and pull it
+    x, y = vp.screen_position([o[0] + s[0], o[1] + s[1] / 2, o[2] + s[2] / 2])
+    drag(vp.plotter.interactor, QPoint(x, y), QPoint(x + 30, y + 20))
+    after = part(w, "main board")
+    assert w.document.undo_stack.undoText() == "Resize part 'main board'"
+    assert after.size_mm[0] != s[0]
+    assert (after.origin_mm[0] + after.size_mm[0]) % 5.0 == pytest.approx(0.0, abs=1e-9)  # snapped face
+    assert after.origin_mm == o and after.size_mm[1:] == s[1:]  # nothing else moved
+    w.actions_["undo"].trigger()
+    assert part(w, "main board").size_mm == s
+
+
+def test_handle_frame_move_keeps_size(main_window):
     w = main_window
     vp = w.viewport
     w.item_tree.select("parts", w.document.model.part_index("regulator"))
     w.snap_box.setValue(0.5)
-    # what a drag leaves in the handle frame: the box moved by (+3.3, -1.1, 0) mm
-    vp._box.PlaceWidget((78.3, 84.3, 38.9, 44.9, 11.6, 13.0))
-    vp._box.InvokeEvent("EndInteractionEvent")
     p = part(w, "regulator")
-    assert p.origin_mm == [78.5, 39.0, 11.5]
-    assert p.size_mm == pytest.approx([6.0, 6.0, 1.5])
-    assert "Resize part 'regulator'" == w.document.undo_stack.undoText()
-    w.actions_["undo"].trigger()
-    assert part(w, "regulator").origin_mm == [75.0, 40.0, 11.6]
+    o, s = list(p.origin_mm), list(p.size_mm)
+    # the frame as a drag leaves it: moved by (+3.3, -1.1, 0) mm
+    vp._box.PlaceWidget((o[0] + 3.3, o[0] + 3.3 + s[0], o[1] - 1.1, o[1] - 1.1 + s[1], o[2], o[2] + s[2]))
+    vp._box.InvokeEvent("EndInteractionEvent")
+    q = part(w, "regulator")
+    assert q.size_mm == s
+    assert q.origin_mm == [edits.snap(o[0] + 3.3, 0.5), edits.snap(o[1] - 1.1, 0.5), o[2]]
+    assert w.document.undo_stack.undoText() == "Move part 'regulator'"
 
 
 def test_place_onto_face_clicked_in_view(main_window):
