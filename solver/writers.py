@@ -34,7 +34,7 @@ def write_history_csv(path, recorder: RunRecorder) -> None:
         w = csv.writer(fh)
         w.writerow(history_header(recorder.problem.model))
         for i, t in enumerate(times):
-            w.writerow([f"{t:.6g}"] + [f"{v:.4f}" for v in pmax[i]] + [f"{v:.4f}" for v in probes[i]])
+            w.writerow([f"{t:.12g}"] + [f"{v:.4f}" for v in pmax[i]] + [f"{v:.4f}" for v in probes[i]])
 
 
 class FieldSeriesWriter:
