@@ -237,3 +237,21 @@ def test_field_series_opens_in_pyvista_and_matches_history(good_run):
         assert np.asarray(grid.compute_cell_sizes(length=False, area=False)["Volume"]).min() > 0
     info = json.loads((out / "run.json").read_text())
     assert info["energy"]["relative_residual"] < 1e-9
+
+
+def test_times_in_csv_keep_their_precision_on_long_runs(tmp_path):
+    """Output every 1234.5678 s for ~3 hours: the written times must be the output times."""
+    every = 1234.5678
+    d = minimal_model_dict()
+    d["parts"][0]["rated_c"] = 25.5
+    d["run"].update(duration_s=9 * every, step_s=every, output_every_s=every, scheme="backward-euler")
+    out = tmp_path / "out"
+    rc, err = _solve_in_process(_write(tmp_path / "long.json", d), out)
+    assert rc == 0, err
+    _, rows = _csv(out / "history.csv")
+    times = np.array([float(r[0]) for r in rows])
+    np.testing.assert_allclose(times, every * np.arange(10), rtol=1e-12, atol=1e-9)
+    ph, prow = _csv(out / "peaks.csv")
+    cube = dict(zip(ph, prow[0]))
+    assert float(cube["peak_time_s"]) == pytest.approx(9 * every, rel=1e-12)
+    assert cube["status"] == "over" and 0.0 < float(cube["first_over_s"]) <= every
