@@ -255,3 +255,24 @@ def test_times_in_csv_keep_their_precision_on_long_runs(tmp_path):
     cube = dict(zip(ph, prow[0]))
     assert float(cube["peak_time_s"]) == pytest.approx(9 * every, rel=1e-12)
     assert cube["status"] == "over" and 0.0 < float(cube["first_over_s"]) <= every
+
+
+@pytest.mark.parametrize("n_points", [16384, 16385, 5000], ids=["full blocks", "one over", "partial"])
+def test_vtu_writer_round_trip_through_pyvista(tmp_path, n_points):
+    """Compressed blocks of 64 KiB: exactly full, one value over, and partial last blocks."""
+    pv = pytest.importorskip("pyvista")
+    from solver.vtkxml import write_vtu
+
+    rng = np.random.default_rng(n_points)
+    pts = rng.uniform(0, 10, (n_points, 3))
+    tets = rng.integers(0, n_points, (4096, 4)).astype(np.int64)  # 4096·4·8 bytes = 2 full blocks
+    temp = rng.normal(40, 5, n_points).astype(np.float32)
+    part_id = rng.integers(0, 3, len(tets)).astype(np.int32)
+    path = tmp_path / "frame.vtu"
+    write_vtu(path, pts, tets, {"temperature_c": temp}, {"part_id": part_id}, 12.5)
+    grid = pv.read(path)
+    np.testing.assert_array_equal(np.asarray(grid.points, dtype=float), pts)
+    np.testing.assert_array_equal(grid.cells.reshape(-1, 5)[:, 1:], tets)
+    np.testing.assert_array_equal(grid.point_data["temperature_c"], temp)
+    np.testing.assert_array_equal(grid.cell_data["part_id"], part_id)
+    assert float(np.asarray(grid.field_data["TimeValue"])[0]) == 12.5

@@ -244,3 +244,22 @@ def test_energy_balance_with_sub_millisecond_steps():
     for ev in Stepper(problem):
         rec.add(ev)
     assert rec.relative_energy_residual < 1e-9
+
+
+# ---------------------------------------------------------------- initial field and part maxima
+def test_initial_temperatures_later_part_wins_on_shared_nodes():
+    d = model_dict([part("left", "aluminium-6061", (0, 0, 0), (10, 6, 4), initial_c=80.0),
+                    part("right", "copper", (10, 0, 0), (10, 6, 4), initial_c=40.0),
+                    part("top", "copper", (0, 0, 4), (20, 6, 2))],
+                   convection=[{"name": "c", "part": "left", "side": "x-", "h": 5.0}], cell_mm=2.0, initial_c=25.0)
+    _, problem = problem_of(d)
+    x, z = problem.mesh.nodes[:, 0] / MM, problem.mesh.nodes[:, 2] / MM
+    d0 = problem.initial
+    below = z < 4 - 1e-9
+    assert np.all(d0[below & (x < 10 - 1e-9)] == 80.0)
+    assert np.all(d0[below & (x >= 10 - 1e-9)] == 40.0)  # the shared plane x = 10 goes to the later part
+    assert np.all(d0[z > 4 + 1e-9] == 25.0)  # no initial_c of its own: the model's
+    # part maxima include shared nodes: with T = x (mm), left reaches 10 and right starts at 10
+    tmax = problem.part_nodes.maxima(x)
+    tmin = problem.part_nodes.minima(x)
+    assert tmax[0] == pytest.approx(10.0) and tmin[1] == pytest.approx(10.0) and tmax[2] == pytest.approx(20.0)
