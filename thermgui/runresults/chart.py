@@ -34,22 +34,43 @@ class PartChart(pg.PlotWidget):
         self._unit = ("s", 1.0)
 
     def show_parts(self, names, times, part_max, part_names, ratings) -> None:
-        """Curves for ``names``: ``times`` (T,) s, ``part_max`` (T, P) °C; ``ratings`` name → °C or None."""
+        """Curves for ``names``: ``times`` (T,) s, ``part_max`` (T, P) °C; ``ratings`` name → °C or None.
+
+        The plot items are rebuilt only when the choice of parts or the time unit changes; new
+        output times only replace the curves' data (cheap while a run streams in)."""
+        span = float(times[-1]) if len(times) else 0.0
+        unit = time_unit(span)
+        key = (tuple(names), tuple(ratings.get(n) for n in names), unit)
+        if key != getattr(self, "_key", None):
+            self._rebuild(names, ratings, unit)
+            self._key = key
+        t = np.asarray(times, float) / self._unit[1]
+        for name, curve in self.curves.items():
+            j = part_names.index(name)
+            y = part_max[:, j] if len(times) else np.zeros(0)
+            curve.setData(t, y, symbol="o" if len(t) < 40 else None)
+        shown = part_max[:, [part_names.index(n) for n in names]] if len(times) and names else np.zeros(0)
+        ys = [float(np.nanmin(shown)), float(np.nanmax(shown))] if np.isfinite(shown).any() else []
+        ys += [r for r in (ratings.get(n) for n in names) if r is not None]
+        ys = [y for y in ys if np.isfinite(y)]
+        if len(t):
+            self.plotItem.setXRange(0.0, max(float(t[-1]), 1e-9), padding=0.02)
+        if ys:  # keep the limit lines and their labels inside the plot
+            lo, hi = min(ys), max(ys)
+            pad = max(0.5, 0.1 * (hi - lo))
+            self.plotItem.setYRange(lo - pad, hi + pad, padding=0)
+
+    def _rebuild(self, names, ratings, unit) -> None:
         self.plotItem.clear()
         self.legend.clear()
         self.plotItem.addItem(self.cursor, ignoreBounds=True)
         self.curves, self.limits = {}, {}
-        span = float(times[-1]) if len(times) else 0.0
-        self._unit = time_unit(span)
-        self.plotItem.setLabel("bottom", "Time", units=self._unit[0])
-        t = np.asarray(times, float) / self._unit[1]
+        self._unit = unit
+        self.plotItem.setLabel("bottom", "Time", units=unit[0])
         for k, name in enumerate(names):
             colour = LINE_COLOURS[k % len(LINE_COLOURS)]
-            j = part_names.index(name)
-            y = part_max[:, j] if len(times) else np.zeros(0)
-            self.curves[name] = self.plotItem.plot(t, y, pen=pg.mkPen(colour, width=2), name=name,
-                                                   symbol="o" if len(t) < 40 else None, symbolSize=4,
-                                                   symbolBrush=colour, symbolPen=None)
+            self.curves[name] = self.plotItem.plot([], [], pen=pg.mkPen(colour, width=2), name=name,
+                                                   symbolSize=4, symbolBrush=colour, symbolPen=None)
             r = ratings.get(name)
             if r is not None:
                 line = pg.InfiniteLine(pos=r, angle=0, movable=False,
@@ -58,15 +79,6 @@ class PartChart(pg.PlotWidget):
                                        labelOpts={"position": 0.05, "color": colour, "anchors": [(0, 1), (0, 1)]})
                 self.plotItem.addItem(line)
                 self.limits[name] = line
-        self.plotItem.enableAutoRange(axis="x")
-        shown = part_max[:, [part_names.index(n) for n in names]] if len(times) and names else np.zeros(0)
-        ys = [float(np.nanmin(shown)), float(np.nanmax(shown))] if np.isfinite(shown).any() else []
-        ys += [r for r in (ratings.get(n) for n in names) if r is not None]
-        ys = [y for y in ys if np.isfinite(y)]
-        if ys:  # keep the limit lines and their labels inside the plot
-            lo, hi = min(ys), max(ys)
-            pad = max(0.5, 0.1 * (hi - lo))
-            self.plotItem.setYRange(lo - pad, hi + pad, padding=0)
 
     def set_cursor(self, time_s: float) -> None:
         self.cursor.setPos(time_s / self._unit[1])

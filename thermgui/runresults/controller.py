@@ -20,7 +20,7 @@ from solver.errors import ModelError
 from solver.runfolder import is_run_folder, load_run
 
 from .chart import PartChart
-from .fieldview import FieldView
+from .fieldview import FieldView, build_display
 from .messages import describe_error, item_for_path
 from .peaktable import PeakTable
 from .runpanel import CAUTION_TEXT, RunStatus
@@ -29,7 +29,8 @@ from .timefmt import format_time
 from .timeline import TimelineBar
 from .worker import RunWorker, start_worker
 
-LIVE_REDRAW_MS = 300  # at most ~3 redraws a second while a run streams frames
+LIVE_REDRAW_MS = 300  # shortest pause between live redraws while a run streams frames
+LIVE_DUTY = 0.05  # live redraws may take at most this share of the wall time (the solve shares the CPU)
 CUT_CHOICES = [("Whole model", None), ("Cut across x", "x"), ("Cut across y", "y"), ("Cut across z", "z")]
 
 
@@ -43,6 +44,8 @@ class ResultsController(QObject):
         self.results_shown = False
         self.stale = False
         self._live = None  # (time_s, field) newest preview between outputs
+        self._new_outputs = False
+        self._marked: set = set()
         self._chart_parts: list[str] | None = None  # None: default choice
         self.view = FieldView(window.viewport.plotter)
         self._build_widgets()
@@ -180,7 +183,13 @@ class ResultsController(QObject):
         self.status.clear_error()
         self.status.preparing("Meshing and assembling the model…")
         self._pending_model = model.to_json_dict()
-        self.worker = RunWorker(model.model_copy(deep=True), out_dir)
+        cut = self.view.cut
+
+        def prepare(session):  # on the worker thread: the big-mesh work that would stall the window
+            store = ResultsStore.for_problem(session.problem, session.out_dir)
+            return store, build_display(store.points_mm, store.tets, cut)
+
+        self.worker = RunWorker(model.model_copy(deep=True), out_dir, prepare=prepare)
         self.worker.prepared.connect(self._on_prepared)
         self.worker.output.connect(self._on_output)
         self.worker.preview.connect(self._on_preview)
@@ -212,12 +221,12 @@ class ResultsController(QObject):
             self.wait()
             self._on_thread_finished()
 
-    def _on_prepared(self, session) -> None:
-        self.store = ResultsStore.for_problem(session.problem, session.out_dir)
+    def _on_prepared(self, session, prepared) -> None:
+        self.store, display = prepared
         self._results_model = self._pending_model
         self._live = None
         self.stale = False
-        self.view.set_geometry(self.store.points_mm, self.store.tets)
+        self.view.attach(display)
         self.status.started(session.describe(), self.store.duration_s)
         for warning in session.warnings:
             self._status_bar(f"Warning: {warning}")
@@ -232,6 +241,7 @@ class ResultsController(QObject):
             return
         self.store.add_frame(time_s, field, part_max)
         self._live = None
+        self._new_outputs = True
         self._schedule_live()
 
     def _on_preview(self, time_s, field) -> None:
@@ -248,23 +258,33 @@ class ResultsController(QObject):
         if s is None or not s.n_frames:
             return
         following = self.timeline.index >= s.n_frames - 2 or not self.timeline.isEnabled()
-        self.timeline.blockSignals(True)
-        self.timeline.set_times(s.times, s.duration_s)
-        self.timeline.blockSignals(False)
-        self._update_chart()
+        if self._new_outputs:
+            self._new_outputs = False
+            self.timeline.blockSignals(True)
+            self.timeline.set_times(s.times, s.duration_s)
+            self.timeline.blockSignals(False)
+            self._update_chart()
         if following and self._live is not None and self._live[0] > s.times[-1]:
             t, f = self._live
             lo, hi = s.colour_range(None, False)
-            self.view.show_field(f, (min(lo, float(f.min())), max(hi, float(f.max()))))
+            self.view.show_field(f, (min(lo, float(f.min())), max(hi, float(f.max()))), paint=False)
             self.view.set_caption(f"t = {format_time(t, s.duration_s)} (computing)")
             self.chart.set_cursor(t)
+        elif following or not self.running:
+            self._show(self.timeline.index, paint=False)
         else:
-            self.show_index(self.timeline.index)
+            return  # the user is looking at an earlier time: nothing new to draw
+        if self.running:  # pace the next live redraw by what this one cost
+            cost = self.view.paint_now()
+            self._redraw.setInterval(int(max(LIVE_REDRAW_MS, 1000 * cost / LIVE_DUTY)))
+        else:
+            self.view.repaint()
 
     def _on_succeeded(self, rows) -> None:
         s = self.store
         s.set_peak_rows(rows)
         self._live = None
+        self._new_outputs = True
         self._live_refresh()
         self.table.set_rows(s.peak_rows)
         self.export_action.setEnabled(True)
@@ -284,6 +304,7 @@ class ResultsController(QObject):
 
     def _on_stopped(self, text: str) -> None:
         self._live = None
+        self._new_outputs = True
         if self.store is not None and self.store.n_frames:
             self._live_refresh()
         self.status.stopped(f"Stopped ({text}). The outputs computed so far can be scrubbed; "
@@ -350,12 +371,15 @@ class ResultsController(QObject):
 
     def show_index(self, i: int) -> None:
         """Draw output ``i``: field, colour range, time, parts over their rating, chart cursor."""
+        self._show(i, paint=True)
+
+    def _show(self, i: int, paint: bool) -> None:
         s = self.store
         if s is None or not s.n_frames or not self.results_shown:
             return
         i = max(0, min(i, s.n_frames - 1))
         clim = s.colour_range(i, self.rescale_box.isChecked())
-        self.view.show_field(s.frame(i), clim)
+        self.view.show_field(s.frame(i), clim, paint=paint)
         t = s.times[i]
         self.view.set_caption(f"t = {format_time(t, s.duration_s)}" + ("   (model changed since)" if self.stale else ""))
         over = s.over_at(i)
@@ -363,20 +387,23 @@ class ResultsController(QObject):
         self.chart.set_cursor(t)
 
     def _mark(self, over: set) -> None:
+        """Mark parts over their rating in the view (frames, caption) and in the item list."""
         s = self.store
         w = self.window
+        i = self.timeline.index
+        if over and s is not None:
+            bits = [f"{n} {s.part_max[i][s.part_names.index(n)]:.1f} °C > {s.rating(n):g} °C" for n in sorted(over)]
+            self.view.set_over_caption("OVER RATING: " + "; ".join(bits))
+        else:
+            self.view.set_over_caption("")
+        if over == self._marked:
+            return
+        self._marked = set(over)
         if hasattr(w.viewport, "highlight_parts"):
             w.viewport.highlight_parts(set(over))
         tree = getattr(w, "item_tree", None)
         if tree is not None and hasattr(tree, "mark_parts"):
             tree.mark_parts(set(over))
-        if over and s is not None:
-            i = self.timeline.index
-            bits = [f"{n} {s.part_max[i][s.part_names.index(n)]:.1f} °C > {s.rating(n):g} °C" for n in sorted(over)]
-            self.view.set_over_caption("OVER RATING: " + "; ".join(bits))
-        else:
-            self.view.set_over_caption("")
-        self.view.repaint()
 
     def shown_over(self) -> set:
         """Parts marked over their rating at the shown time."""

@@ -7,6 +7,8 @@ of the enclosure shows without re-filtering on every frame.
 """
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 import pyvista as pv
 
@@ -16,6 +18,46 @@ LABEL_COLOUR = "#1d2733"
 OVER_COLOUR = "#d0103a"
 AXES = {"x": 0, "y": 1, "z": 2}
 CORNERS = {"lower_left": 0, "lower_right": 1, "upper_left": 2, "upper_right": 3}
+
+
+@dataclass
+class Display:
+    grid: pv.UnstructuredGrid  # the whole tetrahedral mesh, mm
+    surface: pv.PolyData  # what is drawn
+    point_ids: np.ndarray  # surface point -> mesh node
+
+
+def build_display(points_mm: np.ndarray, tets: np.ndarray, cut=None) -> Display:
+    """The drawable surface of a tetrahedral mesh. Pure data work, safe on a worker thread
+    (VTK's filters release the GIL), so the window stays responsive for big meshes."""
+    cells = np.hstack([np.full((len(tets), 1), 4, dtype=np.int64), np.asarray(tets, dtype=np.int64)])
+    celltypes = np.full(len(tets), pv.CellType.TETRA, dtype=np.uint8)
+    grid = pv.UnstructuredGrid(cells.ravel(), celltypes, np.asarray(points_mm, dtype=float))
+    surf, ids = surface_of(grid, cut)
+    return Display(grid, surf, ids)
+
+
+def surface_of(grid: pv.UnstructuredGrid, cut=None) -> tuple[pv.PolyData, np.ndarray]:
+    """Outer surface of ``grid`` or of the whole cells below a cut ``(axis, fraction)``."""
+    if cut is None:
+        sub, sub_ids = grid, np.arange(grid.n_points)
+    else:
+        a = AXES[cut[0]]
+        pts = grid.points
+        tets = grid.cells.reshape(-1, 5)[:, 1:]
+        centre = pts[tets, a].mean(axis=1)
+        lo, hi = pts[:, a].min(), pts[:, a].max()
+        keep = np.nonzero(centre <= lo + cut[1] * (hi - lo))[0]
+        if len(keep) == 0:
+            keep = np.array([int(np.argmin(centre))])
+        sub = grid.extract_cells(keep)
+        sub_ids = np.asarray(sub.point_data["vtkOriginalPointIds"])
+    surf = sub.extract_surface(pass_pointid=True, pass_cellid=False, algorithm="dataset_surface")
+    ids = sub_ids[np.asarray(surf.point_data["vtkOriginalPointIds"])]
+    surf.clear_data()
+    surf.point_data[SCALARS] = np.zeros(surf.n_points, dtype=np.float32)
+    surf.set_active_scalars(SCALARS)
+    return surf, ids
 
 
 class FieldView:
@@ -38,11 +80,14 @@ class FieldView:
 
     # ------------------------------------------------------------ geometry
     def set_geometry(self, points_mm: np.ndarray, tets: np.ndarray) -> None:
-        cells = np.hstack([np.full((len(tets), 1), 4, dtype=np.int64), np.asarray(tets, dtype=np.int64)])
-        celltypes = np.full(len(tets), pv.CellType.TETRA, dtype=np.uint8)
-        self.grid = pv.UnstructuredGrid(cells.ravel(), celltypes, np.asarray(points_mm, dtype=float))
+        """Build and show the drawable surface (slow for big meshes: see :func:`build_display`)."""
+        self.attach(build_display(points_mm, tets, self.cut))
+
+    def attach(self, display: "Display") -> None:
+        """Show a display prepared by :func:`build_display` (possibly on another thread)."""
+        self.grid = display.grid
         self._field = None
-        self._rebuild()
+        self._install(display.surface, display.point_ids)
         bounds = tuple(np.round(self.grid.bounds, 6))
         if bounds != self._framed_bounds:  # new shape: frame it (keep the user's camera otherwise)
             if self._framed_bounds is None:
@@ -54,29 +99,11 @@ class FieldView:
         """Keep the cells whose centres lie below ``fraction`` of the extent along ``axis`` (None: all)."""
         self.cut = None if not axis else (axis, float(np.clip(fraction, 0.0, 1.0)))
         if self.grid is not None:
-            self._rebuild()
+            surf, ids = surface_of(self.grid, self.cut)
+            self._install(surf, ids)
 
-    def _rebuild(self) -> None:
-        grid = self.grid
-        if self.cut is None:
-            sub, sub_ids = grid, np.arange(grid.n_points)
-        else:
-            a = AXES[self.cut[0]]
-            pts = grid.points
-            tets = grid.cells.reshape(-1, 5)[:, 1:]
-            centre = pts[tets, a].mean(axis=1)
-            lo, hi = pts[:, a].min(), pts[:, a].max()
-            keep = np.nonzero(centre <= lo + self.cut[1] * (hi - lo))[0]
-            if len(keep) == 0:
-                keep = np.array([int(np.argmin(centre))])
-            sub = grid.extract_cells(keep)
-            sub_ids = np.asarray(sub.point_data["vtkOriginalPointIds"])
-        surf = sub.extract_surface(pass_pointid=True, pass_cellid=False, algorithm="dataset_surface")
-        self.point_ids = sub_ids[np.asarray(surf.point_data["vtkOriginalPointIds"])]
-        surf.clear_data()
-        surf.point_data[SCALARS] = np.zeros(surf.n_points, dtype=np.float32)
-        surf.set_active_scalars(SCALARS)
-        self.surface = surf
+    def _install(self, surf, point_ids) -> None:
+        self.surface, self.point_ids = surf, point_ids
         if self.actor is not None:
             self.plotter.remove_actor(self.actor, render=False)
         self.actor = self.plotter.add_mesh(
@@ -90,8 +117,9 @@ class FieldView:
             self.show_field(self._field, self._clim)
 
     # ------------------------------------------------------------ per frame
-    def show_field(self, field_c: np.ndarray, clim: tuple[float, float]) -> None:
-        """Copy the temperatures of the shown surface and set the colour range (°C)."""
+    def show_field(self, field_c: np.ndarray, clim: tuple[float, float], paint: bool = True) -> None:
+        """Copy the temperatures of the shown surface and set the colour range (°C);
+        ``paint=False`` leaves the redraw to the caller (see :meth:`paint_now`)."""
         self._field = field_c
         if self.surface is None:
             return
@@ -100,7 +128,8 @@ class FieldView:
         if tuple(clim) != self._clim:
             self._clim = (float(clim[0]), float(clim[1]))
             self.actor.mapper.scalar_range = self._clim
-        self.repaint()
+        if paint:
+            self.repaint()
 
     def shown_scalars(self) -> np.ndarray:
         """Temperatures currently held by the drawn surface (°C), surface point order."""
@@ -145,6 +174,18 @@ class FieldView:
             for key in list(sb.keys()):
                 sb[key].SetVisibility(on)
         self.repaint()
+
+    def paint_now(self) -> float:
+        """Redraw synchronously; returns the wall time it took (s), to pace live redraws."""
+        import time
+
+        t = time.perf_counter()
+        w = getattr(self.plotter, "interactor", None)
+        if w is not None and hasattr(w, "repaint"):
+            w.repaint()
+        else:
+            self.plotter.render()
+        return time.perf_counter() - t
 
     def repaint(self) -> None:
         """Schedule a redraw of the Qt widget (cheaper than a synchronous render)."""

@@ -21,14 +21,15 @@ from .messages import describe_error
 class RunWorker(QObject):
     """Signals (all queued to the window's thread):
 
-    - ``prepared(session)`` after meshing and assembly (before the first step);
+    - ``prepared(session, extra)`` after meshing and assembly (before the first step); ``extra`` is
+      what ``prepare(session)`` returned, run here on the worker thread (e.g. display geometry);
     - ``output(time_s, field_c float32, part_max_c)`` at every output time;
     - ``preview(time_s, field_c float32)`` between outputs, for the live view only;
     - ``progress(step, n_steps, time_s, elapsed_s)``;
     - ``succeeded(peak_rows)``, ``failed(headline, details, issues)``, ``stopped(text)``; then ``done()``.
     """
 
-    prepared = Signal(object)
+    prepared = Signal(object, object)
     output = Signal(float, object, object)
     preview = Signal(float, object)
     progress = Signal(int, int, float, float)
@@ -37,8 +38,9 @@ class RunWorker(QObject):
     stopped = Signal(str)
     done = Signal()
 
-    def __init__(self, model, out_dir, preview_every_s: float = 0.3, progress_every_s: float = 0.1):
+    def __init__(self, model, out_dir, prepare=None, preview_every_s: float = 0.3, progress_every_s: float = 0.1):
         super().__init__()
+        self.prepare = prepare
         self.model = model
         self.out_dir = out_dir
         self.preview_every_s = preview_every_s
@@ -59,10 +61,11 @@ class RunWorker(QObject):
     def _run(self) -> None:
         try:
             session = RunSession(self.model, self.out_dir, cancel=self._stop.is_set)
+            extra = self.prepare(session) if self.prepare is not None else None
         except Exception as e:  # ModelError (invalid, unstable step, mesh too large), MemoryError, ...
             self.failed.emit(*describe_error(e), list(getattr(e, "issues", [])))
             return
-        self.prepared.emit(session)
+        self.prepared.emit(session, extra)
         last_preview = last_progress = time.perf_counter()
         try:
             for ev in session.events():
