@@ -20,7 +20,7 @@ def edit_some(window):
     """A few edits of different kinds, as a user might make them."""
     w = window
     w.item_tree.select("parts", w.document.model.part_index("regulator"))
-    w.properties.forms["parts"].size.fields[1].set_text_and_commit("7.5")
+    w.properties.forms["parts"].dims.fields[1].set_text_and_commit("7.5")
     w.actions_["add_load"].trigger()
     w.properties.forms["heat_loads"].profile.fields["constant"]["value"].set_text_and_commit("0.25")
     w.item_tree.select("parts", w.document.model.part_index("lid"))
@@ -112,7 +112,7 @@ def test_autosave_and_recovery_after_a_crash(open_main_window, sample_copy, gui_
     rec = recovery_file(sample_copy, gui_state / "recovery")
     assert not rec.exists()
     w.item_tree.select("parts", w.document.model.part_index("main board"))
-    w.properties.forms["parts"].origin.fields[2].set_text_and_commit("12")
+    w.properties.forms["parts"].corner.fields[2].set_text_and_commit("12")
     edited = w.document.model_dict()
     qtbot.waitUntil(rec.exists, timeout=5000)  # written by the autosave timer
     assert json.loads(rec.read_text())["model"] == edited

@@ -71,7 +71,7 @@ def test_size_typed_in_form_then_undo_redo(main_window):
     w = main_window
     i = w.document.model.part_index("regulator")
     w.item_tree.select("parts", i)
-    size_x = w.properties.forms["parts"].size.fields[0].edit
+    size_x = w.properties.forms["parts"].dims.fields[0].edit
     type_into(size_x, "10")
     assert part(w, "regulator").size_mm == [10.0, 6.0, 1.4]
     assert w.document.dirty and w.isWindowModified()
@@ -100,7 +100,7 @@ def test_negative_size_is_refused_with_a_message(main_window):
     before = w.document.model_dict()
     i = w.document.model.part_index("radio module")
     w.item_tree.select("parts", i)
-    size_z = w.properties.forms["parts"].size.fields[2].edit
+    size_z = w.properties.forms["parts"].dims.fields[2].edit
     type_into(size_z, "-2")
     errors = w.prompts.errors()
     assert len(errors) == 1

@@ -36,13 +36,15 @@ class PropertyPanel(QWidget):
         self.stack.addWidget(self.empty)
         self.forms = {"parts": PartForm(self), "heat_loads": HeatLoadForm(self), "convection": ConvectionForm(self),
                       "probes": ProbeForm(self), "study": StudyForm(self)}
-        for f in self.forms.values():
-            self.stack.addWidget(f)
-        scroll = QScrollArea()
-        scroll.setWidgetResizable(True)
-        scroll.setWidget(self.stack)
-        scroll.setFrameShape(QScrollArea.NoFrame)
-        lay.addWidget(scroll, 1)
+        self._pages = {}
+        for kind, f in self.forms.items():
+            scroll = QScrollArea()  # one per form, so each scrolls only when it is itself too tall
+            scroll.setWidgetResizable(True)
+            scroll.setWidget(f)
+            scroll.setFrameShape(QScrollArea.NoFrame)
+            self.stack.addWidget(scroll)
+            self._pages[kind] = scroll
+        lay.addWidget(self.stack, 1)
         document.changed.connect(self.reload)
         self.show_item("none", -1)
 
@@ -51,15 +53,7 @@ class PropertyPanel(QWidget):
         self.reload()
 
     def _show(self, page) -> None:
-        """Show ``page``; the scroll area then sizes to that page, not to the tallest form."""
-        from PySide6.QtWidgets import QSizePolicy
-
-        for k in range(self.stack.count()):
-            w = self.stack.widget(k)
-            pol = QSizePolicy.Preferred if w is page else QSizePolicy.Ignored
-            w.setSizePolicy(pol, pol)
         self.stack.setCurrentWidget(page)
-        self.stack.adjustSize()
 
     def current_form(self):
         return self.forms.get(self.kind) if self.stack.currentWidget() is not self.empty else None
@@ -74,6 +68,6 @@ class PropertyPanel(QWidget):
             return
         form.index = self.index
         form.load()
-        self._show(form)
+        self._show(self._pages[self.kind])
         label = "" if self.kind == "study" else " · " + edits.item_label(d, self.kind, self.index)
         self.title.setText(KIND_TITLES[self.kind] + label)

@@ -90,14 +90,14 @@ class PartForm(ItemForm):
         self.name = self.name_edit(self.rename)
         self.material = MaterialPicker()
         self.material.materialChosen.connect(lambda m: self.commit(("parts", self.index, "material"), m, "material"))
-        self.origin = Vec3Field("mm")
-        self.origin.committed.connect(lambda a, v: self.commit(("parts", self.index, "origin_mm", a), v,
+        self.corner = Vec3Field("mm")
+        self.corner.committed.connect(lambda a, v: self.commit(("parts", self.index, "origin_mm", a), v,
                                                                f"position {AXES[a]}"))
-        self.origin.rejected.connect(lambda a, t: self.reject_text(f"position {AXES[a]}", t))
-        self.size = Vec3Field("mm")
-        self.size.committed.connect(lambda a, v: self.commit(("parts", self.index, "size_mm", a), v,
+        self.corner.rejected.connect(lambda a, t: self.reject_text(f"position {AXES[a]}", t))
+        self.dims = Vec3Field("mm")
+        self.dims.committed.connect(lambda a, v: self.commit(("parts", self.index, "size_mm", a), v,
                                                              f"size {AXES[a]}"))
-        self.size.rejected.connect(lambda a, t: self.reject_text(f"size {AXES[a]}", t))
+        self.dims.rejected.connect(lambda a, t: self.reject_text(f"size {AXES[a]}", t))
         self.rated = NumberField("°C", optional=True, placeholder="no rating")
         self.rated.committed.connect(lambda v: self.commit(("parts", self.index, "rated_c"), v, "rated temperature"))
         self.rated.rejected.connect(lambda t: self.reject_text("rated temperature", t))
@@ -110,8 +110,8 @@ class PartForm(ItemForm):
         L = self.layout_
         L.addRow("Name", self.name)
         L.addRow("Material", self.material)
-        L.addRow("Corner (min)", self.origin)
-        L.addRow("Size", self.size)
+        L.addRow("Corner (min)", self.corner)
+        L.addRow("Size", self.dims)
         L.addRow("Rated at", self.rated)
         L.addRow("Starts at", self.initial)
         L.addRow("", self.place)
@@ -125,8 +125,8 @@ class PartForm(ItemForm):
         p = self.item(d)
         self.name.setText(p["name"])
         self.material.set_choices(self.doc.model, p["material"])
-        self.origin.set_values(p["origin_mm"])
-        self.size.set_values(p["size_mm"])
+        self.corner.set_values(p["origin_mm"])
+        self.dims.set_values(p["size_mm"])
         self.rated.set_value(p.get("rated_c"))
         self.initial.set_value(p.get("initial_c"))
 
