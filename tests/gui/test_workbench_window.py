@@ -287,6 +287,7 @@ def test_probes_and_convection_faces_are_drawn(main_window):
 
 def test_editing_screenshot(main_window, artifacts):
     w = main_window
+    w.resize(1440, 920)
     w.item_tree.select("parts", w.document.model.part_index("radio module"))
     for _ in range(2):  # the first frame after a layout change can use the old viewport size
         w.viewport.plotter.render()
