@@ -23,6 +23,7 @@ ABSOLUTE_ZERO_C = -273.15
 SIDES = ("x-", "x+", "y-", "y+", "z-", "z+", "exposed")
 SCHEMES = ("backward-euler", "crank-nicolson", "forward-euler")
 MASS_KINDS = ("consistent", "lumped")
+MAX_STEPS = 5_000_000  # time steps one run may take
 
 
 class _Strict(BaseModel):
@@ -306,8 +307,20 @@ def _cross_check(m: Model) -> list[tuple[str, str]]:
     if r.scheme == "forward-euler" and r.mass != "lumped":
         issues.append(("run.mass", "forward Euler needs \"lumped\" capacity (a consistent capacity matrix "
                                    "would need a linear solve every step and loses the explicit scheme's point)"))
-    if r.duration_s / r.step_s > 5_000_000:
+    if r.duration_s / r.step_s > MAX_STEPS:
         issues.append(("run.step_s", "more than 5 million steps; choose a longer step"))
+    # every pulse edge is a landing time, so a fast pulse forces steps of its own
+    profiles = [(f"heat_loads[{i}].profile", hl.profile) for i, hl in enumerate(m.heat_loads)]
+    profiles += [(f"convection[{i}].ambient_c", c.ambient_c) for i, c in enumerate(m.convection)]
+    for path, p in profiles:
+        if p is None or p.type != "pulse" or p.high == p.low or p.duty >= 1.0:
+            continue
+        edges = 2.0 * max(0.0, r.duration_s - p.start_s) / p.period_s
+        if edges > MAX_STEPS:
+            issues.append((f"{path}.period_s",
+                           f"a {p.period_s:g} s period has about {edges:,.0f} on/off edges in {r.duration_s:g} s, "
+                           "each needing its own time step (more than 5 million); use a longer period, or its "
+                           "average (duty·high + (1 − duty)·low) as a constant"))
     return issues
 
 
