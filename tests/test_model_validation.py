@@ -85,6 +85,8 @@ CASES = [
     ("step longer than duration", _set(("run", "step_s"), 20.0), "run.step_s", "longer than the duration"),
     ("forward euler consistent", lambda d: d["run"].update(scheme="forward-euler", mass="consistent"),
      "run.mass", "lumped"),
+    ("pulse too fast for the run", _load(dict(PULSE, period_s=1e-6)), "heat_loads[0].profile.period_s",
+     "5 million"),
     ("min layers zero", _set(("mesh", "min_layers"), 0), "mesh.min_layers", "greater than or equal to 1"),
     ("bad ambient", _set(("convection", 0, "ambient_c"), "warm"), "convection[0].ambient_c", "number"),
 ]
