@@ -34,6 +34,7 @@ class MainWindow(QMainWindow):
         super().__init__()
         self.setWindowTitle(APP_NAME)
         self.resize(1360, 840)
+        self.setAcceptDrops(True)  # drop a model file to open it
         self.prompts = prompts if prompts is not None else DialogPrompts(self)
         self.document = ModelDocument(model, path, self)
         kwargs = {} if autosave_s is None else {"autosave_s": autosave_s}
@@ -73,6 +74,16 @@ class MainWindow(QMainWindow):
         self._build_actions()
         self._build_menus()
         self._build_toolbar()
+        self.item_tree.setContextMenuPolicy(Qt.ActionsContextMenu)
+        a = self.actions_
+        for key in ("add_part", "add_load", "add_face", "add_probe", None, "duplicate", "rename", "delete", None,
+                    "place"):
+            if key is None:
+                sep = QAction(self)
+                sep.setSeparator(True)
+                self.item_tree.addAction(sep)
+            else:
+                self.item_tree.addAction(a[key])
 
         # ---- wiring
         d = self.document
@@ -447,6 +458,17 @@ class MainWindow(QMainWindow):
         self.prompts.info("About thermgui", f"thermgui {__version__}\n\nTransient heat conduction in "
                                             f"electronics enclosures: peak temperatures, when, and margin to "
                                             f"rating.\n\n{CAUTION}")
+
+    def dragEnterEvent(self, event):
+        urls = event.mimeData().urls() if event.mimeData().hasUrls() else []
+        if len(urls) == 1 and urls[0].isLocalFile():
+            event.acceptProposedAction()
+
+    def dropEvent(self, event):
+        urls = event.mimeData().urls()
+        if urls and urls[0].isLocalFile():
+            event.acceptProposedAction()
+            self.fileops.open_path(urls[0].toLocalFile())
 
     def closeEvent(self, event):
         if self._closing_done:

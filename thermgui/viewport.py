@@ -127,6 +127,8 @@ class Viewport(QWidget):
         self._box.AddObserver("EndInteractionEvent", self._on_box_released)
         # clicks are read from Qt's events, before VTK (the handle frame consumes clicks inside it)
         self.plotter.interactor.installEventFilter(self)
+        self.plotter.setAcceptDrops(False)  # pyvista would try to load a dropped file as a mesh
+        self.plotter.iren.clear_key_event_callbacks()  # no plotter key bindings ('q' closes it)
 
     # ------------------------------------------------------------ drawing
     def refresh(self) -> None:
@@ -443,6 +445,10 @@ class Viewport(QWidget):
 
     def eventFilter(self, obj, event):
         t = event.type()
+        if t in (QEvent.KeyPress, QEvent.KeyRelease) and not event.modifiers() & (Qt.ControlModifier | Qt.AltModifier):
+            # VTK's own one-letter keys (wireframe, stereo, exit ...) would surprise a user here;
+            # the window's menus and shortcuts cover what is needed
+            return True
         if t in (QEvent.MouseButtonPress, QEvent.Wheel):
             self._camera_touched = True
         if t in (QEvent.MouseButtonPress, QEvent.MouseButtonDblClick) and event.button() == Qt.LeftButton:

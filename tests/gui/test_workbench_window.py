@@ -298,3 +298,17 @@ def test_editing_screenshot(main_window, artifacts):
     view = w.viewport.grab().toImage()
     colours = {view.pixel(x, y) for x in range(0, view.width(), 23) for y in range(0, view.height(), 23)}
     assert len(colours) > 20
+
+
+def test_plain_keys_in_view_do_not_reach_vtk(main_window):
+    """VTK's one-letter keys (w = wireframe, q/e = quit) must not act inside the app."""
+    w = main_window
+    view = w.viewport.plotter.interactor
+    view.setFocus()
+    for key in (Qt.Key_W, Qt.Key_Q, Qt.Key_E):
+        QTest.keyClick(view, key)
+    actor = next(iter(w.viewport._actors.values()))
+    assert actor.GetProperty().GetRepresentation() == 2  # VTK_SURFACE
+    assert not w.viewport.plotter._closed
+    click_view(w, [60, 40, 40])  # the view still answers
+    assert w.viewport.selected_part == "lid"
