@@ -31,15 +31,16 @@ def refined_model(target_nodes: int, steps: int) -> dict:
     from solver.model import parse_model
 
     d = json.loads((ROOT / "samples" / "outdoor_radio_box.json").read_text())
-    lo, hi = 0.5, 4.0
+    def nodes(cell):
+        d["mesh"]["cell_mm"] = round(cell, 4)
+        return estimate_nodes(parse_model(d))
+
+    lo, hi = 0.5, 4.0  # node count falls in steps as the cell grows: take the nearer side
     for _ in range(14):
         mid = 0.5 * (lo + hi)
-        d["mesh"]["cell_mm"] = round(mid, 4)
-        if estimate_nodes(parse_model(d)) > target_nodes:
-            lo = mid
-        else:
-            hi = mid
-    d["mesh"]["cell_mm"] = round(hi, 4)
+        lo, hi = (mid, hi) if nodes(mid) > target_nodes else (lo, mid)
+    best = min((lo, hi), key=lambda c: abs(nodes(c) - target_nodes))
+    d["mesh"]["cell_mm"] = round(best, 4)
     step = d["run"]["step_s"]
     d["run"].update(duration_s=steps * step, output_every_s=5 * step)
     return d
@@ -80,18 +81,60 @@ def main(argv=None) -> int:
     t = time.perf_counter()
     base_s, n_nodes = headless_seconds(model, work / "headless")
     print(f"model: sample refined to cell {d['mesh']['cell_mm']} mm, {n_nodes:,} nodes, {args.steps} steps "
-          f"({time.perf_counter() - t:.1f} s headless including meshing)")
+          f"({time.perf_counter() - t:.1f} s headless including meshing; stepping {base_s:.1f} s)")
 
     import pyvista as pv
-    from PySide6.QtCore import QEventLoop, QTimer
 
     from thermgui.app import make_application, open_window
 
     pv.global_theme.multi_samples = 0
     app = make_application()
+    slow = watch_slots()
     win = open_window(path, autosave_s=0)
     for _ in range(20):
         app.processEvents()
+    results = {}
+    for turning in ([False, True] if not args.no_turn else [False]):
+        slow.clear()
+        results[turning] = run_in_app(app, win, turning)
+        label = "turning the view every 200 ms" if turning else "view left alone"
+        r = results[turning]
+        print(f"in the app, {label}: largest gap between 20 ms timer ticks: idle {1000 * r['idle']:.0f} ms, "
+              f"while meshing/assembling {1000 * r['prep']:.0f} ms, while stepping {1000 * r['step']:.0f} ms; "
+              f"stepping {r['solve']:.1f} s = {r['solve'] / base_s:.2f} x headless ({base_s:.1f} s); "
+              f"live redraws paced every {r['pace']:.2f} s")
+        top = sorted(slow, key=lambda x: -x[1])[:4]
+        print("   longest main-thread handlers: " + ", ".join(f"{n} {1000 * t:.0f} ms" for n, t in top))
+    win.close()
+    return 0
+
+
+def watch_slots() -> list:
+    """Time the results controller's handlers on the main thread (name, seconds)."""
+    import functools
+
+    from thermgui.runresults import controller as C
+
+    seen: list = []
+    for name in ("_on_prepared", "_on_output", "_on_preview", "_live_refresh", "show_index", "_on_succeeded"):
+        orig = getattr(C.ResultsController, name)
+
+        def wrap(orig=orig, name=name):
+            @functools.wraps(orig)
+            def f(self, *a, **k):
+                t = time.perf_counter()
+                try:
+                    return orig(self, *a, **k)
+                finally:
+                    seen.append((name, time.perf_counter() - t))
+            return f
+        setattr(C.ResultsController, name, wrap())
+    return seen
+
+
+def run_in_app(app, win, turning: bool) -> dict:
+    from PySide6.QtCore import QEventLoop, QTimer
+
     ticks: list[float] = []
     marks: dict[str, float] = {}
     tick = QTimer()
@@ -106,7 +149,7 @@ def main(argv=None) -> int:
 
     turn.timeout.connect(rotate)
     tick.start()
-    if not args.no_turn:
+    if turning:
         turn.start()
     idle = QEventLoop()
     QTimer.singleShot(2000, idle.quit)
@@ -116,7 +159,7 @@ def main(argv=None) -> int:
     marks["start"] = time.perf_counter()
     res.start_run()
     last = {}
-    res.worker.prepared.connect(lambda _s: marks.setdefault("prepared", time.perf_counter()))
+    res.worker.prepared.connect(lambda *_: marks.setdefault("prepared", time.perf_counter()))
     res.worker.progress.connect(lambda step, n, t_s, el: last.update(elapsed=el))
     loop = QEventLoop()
     res.worker.done.connect(loop.quit)
@@ -126,15 +169,10 @@ def main(argv=None) -> int:
         app.processEvents()
     tick.stop()
     turn.stop()
-    gui_s = last.get("elapsed", float("nan"))
     prep = marks.get("prepared", marks["end"])
-    print(f"largest gap between 20 ms timer ticks: idle {1000 * gaps(ticks, marks['idle0'], marks['start']):.0f} ms, "
-          f"while meshing/assembling {1000 * gaps(ticks, marks['start'], prep):.0f} ms, "
-          f"while stepping {1000 * gaps(ticks, prep, marks['end']):.0f} ms")
-    print(f"stepping time: headless {base_s:.1f} s, in the app with live view {gui_s:.1f} s "
-          f"(ratio {gui_s / base_s:.2f}; outputs drawn: {res.store.n_frames if res.store else 0})")
-    win.close()
-    return 0
+    return {"idle": gaps(ticks, marks["idle0"], marks["start"]), "prep": gaps(ticks, marks["start"], prep),
+            "step": gaps(ticks, prep, marks["end"]), "solve": last.get("elapsed", float("nan")),
+            "pace": res._redraw.interval() / 1000.0}
 
 
 if __name__ == "__main__":

@@ -126,6 +126,20 @@ def test_run_scrub_mark_export_reopen(qtbot, tmp_path, cli_peaks, open_main_wind
     assert res.table.marked_parts() == {"chip"}
     shot(win, "results-scrubbing-over-rating.png")
 
+    # choosing a part in the item list draws that part's curve; the rated parts by default
+    assert set(res.chart.curves) == {"plate", "chip"} and set(res.chart.limits) == {"plate", "chip"}
+    win.item_tree.select("parts", 2)
+    assert set(res.chart.curves) == {"foot"} and not res.chart.limits
+    res.set_chart_parts([])
+    assert set(res.chart.curves) == {"plate", "chip"}
+
+    # play runs through the outputs to the last one and stops
+    res.timeline.set_index(0)
+    res.timeline.set_playing(True)
+    qtbot.waitUntil(lambda: not res.timeline.timer.isActive(), timeout=10000)
+    assert res.timeline.index == 6
+    assert np.array_equal(res.view.shown_scalars(), store.frame(6)[res.view.point_ids])
+
     # clicking the chart moves the slider to the nearest output
     chart = res.chart
     scene_pt = chart.plotItem.vb.mapViewToScene(QPointF(31.0, 30.0))
@@ -170,6 +184,28 @@ def test_run_scrub_mark_export_reopen(qtbot, tmp_path, cli_peaks, open_main_wind
     res.timeline.set_index(4)
     assert np.allclose(res.view.shown_scalars(), store.frame(4)[res.view.point_ids], atol=1e-4)
     assert res.table.marked_parts() == {"chip"}
+
+    # editing the model makes the results stale (view back to the boxes); undo makes them current
+    d = win.document.model_dict()
+    d["parts"][1]["rated_c"] = 45.0
+    win.document.edit(d, "change rating")
+    assert res.stale and win.viewport.mode == "edit" and not res.results_shown
+    win.document.undo_stack.undo()
+    assert not res.stale
+    res.show_action.trigger()
+    assert res.results_shown and win.viewport.mode == "results"
+
+    # opening the model again in a new window finds the results beside it (no solving)
+    win2 = open_main_window(path)
+    r2 = win2.results
+    assert r2.store is not None and r2.store.complete and not r2.running and r2.worker is None
+    assert r2.store.n_frames == store.n_frames
+    assert np.allclose(r2.store.frame(6), store.frame(6), atol=1e-4)
+    assert win2.viewport.mode == "results" and win2.item_tree.marked_parts == {"chip"}
+    # and opening the results folder itself loads its model and its frames
+    assert win2.fileops.open_path(folder, ask_first=False)
+    assert win2.document.model.to_json_dict() == win.document.model.to_json_dict()
+    assert r2.store.folder == folder and r2.results_shown
 
 
 def test_refused_run_gives_message_and_keeps_model(qtbot, tmp_path, open_main_window):

@@ -30,7 +30,8 @@ from .timeline import TimelineBar
 from .worker import RunWorker, start_worker
 
 LIVE_REDRAW_MS = 300  # shortest pause between live redraws while a run streams frames
-LIVE_DUTY = 0.05  # live redraws may take at most this share of the wall time (the solve shares the CPU)
+LIVE_DUTY = 0.05  # live redraws aim at this share of the wall time (the solve shares the CPU) ...
+LIVE_LONGEST_MS = 3000  # ... but the view is refreshed at least this often while a run streams
 CUT_CHOICES = [("Whole model", None), ("Cut across x", "x"), ("Cut across y", "y"), ("Cut across z", "z")]
 
 
@@ -276,7 +277,7 @@ class ResultsController(QObject):
             return  # the user is looking at an earlier time: nothing new to draw
         if self.running:  # pace the next live redraw by what this one cost
             cost = self.view.paint_now()
-            self._redraw.setInterval(int(max(LIVE_REDRAW_MS, 1000 * cost / LIVE_DUTY)))
+            self._redraw.setInterval(int(min(LIVE_LONGEST_MS, max(LIVE_REDRAW_MS, 1000 * cost / LIVE_DUTY))))
         else:
             self.view.repaint()
 
