@@ -109,6 +109,7 @@ class MainWindow(QMainWindow):
             install(self)
         except ImportError:
             pass
+        self._restore_layout()
 
     # ------------------------------------------------------------ building
     def _act(self, key, text, slot, shortcut=None, icon=None, tip=None, checkable=False):
@@ -459,6 +460,20 @@ class MainWindow(QMainWindow):
                                             f"electronics enclosures: peak temperatures, when, and margin to "
                                             f"rating.\n\n{CAUTION}")
 
+    def _restore_layout(self) -> None:
+        s = self.fileops.settings
+        geometry, state = s.value("window/geometry"), s.value("window/state")
+        if geometry is not None:
+            self.restoreGeometry(geometry)
+        if state is not None:
+            self.restoreState(state)
+
+    def _save_layout(self) -> None:
+        s = self.fileops.settings
+        s.setValue("window/geometry", self.saveGeometry())
+        s.setValue("window/state", self.saveState())
+        s.sync()
+
     def dragEnterEvent(self, event):
         urls = event.mimeData().urls() if event.mimeData().hasUrls() else []
         if len(urls) == 1 and urls[0].isLocalFile():
@@ -479,6 +494,7 @@ class MainWindow(QMainWindow):
             return
         self.fileops.timer.stop()
         self.fileops.remove_recovery()
+        self._save_layout()
         self.shutdown()
         event.accept()
 

@@ -177,3 +177,5 @@ def test_thermgui_command_opens_a_window(tmp_path):
     assert "Traceback" not in r.stderr
     n_parts = len(load_model(SAMPLE).parts)
     assert f"TITLE {SAMPLE.name}[*] — thermgui {n_parts} True" in r.stdout
+    # a normal close keeps the window layout for next time
+    assert "geometry" in (tmp_path / "settings.ini").read_text()
