@@ -227,3 +227,35 @@ def test_forward_euler_with_consistent_capacity_is_refused():
         solver.parse_model(_fe_model(1e-3, mass="consistent"))
     assert err.value.first_path == "run.mass"
     assert "lumped" in str(err.value)
+
+
+# ---------------------------------------------------------------- abrupt ambient change
+def test_abrupt_ambient_rise_no_overshoot():
+    """Ambient steps from 20 to 80 °C at t = 5 s on a stiff mesh with 1 s steps.
+
+    Physically (and by the maximum principle of the heat equation) no point may exceed 80 °C.
+    Discrete maximum principle, from memory: lumped-capacity backward Euler keeps it when the
+    stiffness matrix has no positive off-diagonal entries (non-obtuse tetrahedra, as the
+    Kuhn split of boxes gives). Crank–Nicolson does not; its damped start-up must keep the
+    overshoot far below the plain scheme's.
+    """
+    amb = {"type": "pulse", "high": 80.0, "low": 20.0, "period_s": 1000.0, "duty": 1.0, "start_s": 5.0}
+    d = model_dict([part("plate", "aluminium-6061", (0, 0, 0), (10, 10, 1)),
+                    part("chip", "copper", (4, 4, 1), (2, 2, 1))],
+                   convection=[{"name": "all", "part": "plate", "side": "exposed", "h": 2000.0, "ambient_c": amb}],
+                   cell_mm=1.0, min_layers=2, duration_s=15.0, step_s=1.0, scheme="backward-euler", mass="lumped",
+                   output_every_s=1.0, initial_c=20.0, ambient_c=20.0)
+    _, problem = problem_of(d)
+    k = problem.stiffness.tocoo()
+    off = k.row != k.col
+    assert k.data[off].max() <= 1e-12 * np.abs(k.data).max()  # M-matrix structure
+    fields = np.array([ev.field for ev in Stepper(problem)])
+    assert fields.max() <= 80.0 + 1e-9 and fields.min() >= 20.0 - 1e-9
+    assert fields[-1].max() > 75.0  # it did warm up towards the new ambient
+
+    d["run"]["scheme"] = "crank-nicolson"
+    _, problem = problem_of(d)
+    over = {damp: np.array([ev.field for ev in Stepper(problem, damp_after_jumps=damp)]).max() - 80.0
+            for damp in (True, False)}
+    assert over[False] > 1.0  # kelvin: plain Crank–Nicolson rings above the ambient
+    assert over[True] < 0.05 and over[True] < 0.05 * over[False]
