@@ -235,8 +235,9 @@ def test_abrupt_ambient_rise_no_overshoot():
 
     Physically (and by the maximum principle of the heat equation) no point may exceed 80 °C.
     Discrete maximum principle, from memory: lumped-capacity backward Euler keeps it when the
-    stiffness matrix has no positive off-diagonal entries (non-obtuse tetrahedra, as the
-    Kuhn split of boxes gives). Crank–Nicolson does not; its damped start-up must keep the
+    conduction matrix has no positive off-diagonal entries (non-obtuse tetrahedra, as the
+    Kuhn split of boxes gives; the consistent convection term adds small positive ones, so
+    this is checked, not assumed). Crank–Nicolson does not; its damped start-up must keep the
     overshoot far below the plain scheme's.
     """
     amb = {"type": "pulse", "high": 80.0, "low": 20.0, "period_s": 1000.0, "duty": 1.0, "start_s": 5.0}
@@ -246,9 +247,9 @@ def test_abrupt_ambient_rise_no_overshoot():
                    cell_mm=1.0, min_layers=2, duration_s=15.0, step_s=1.0, scheme="backward-euler", mass="lumped",
                    output_every_s=1.0, initial_c=20.0, ambient_c=20.0)
     _, problem = problem_of(d)
-    k = problem.stiffness.tocoo()
+    k = problem.conductivity.tocoo()
     off = k.row != k.col
-    assert k.data[off].max() <= 1e-12 * np.abs(k.data).max()  # M-matrix structure
+    assert k.data[off].max() <= 1e-12 * np.abs(k.data).max()  # M-matrix structure of conduction
     fields = np.array([ev.field for ev in Stepper(problem)])
     assert fields.max() <= 80.0 + 1e-9 and fields.min() >= 20.0 - 1e-9
     assert fields[-1].max() > 75.0  # it did warm up towards the new ambient
