@@ -175,6 +175,20 @@ def test_problems_found_when_building(mutate, path, words):
     assert err.value.first_path == path and words in str(err.value)
 
 
+def test_heat_load_on_a_part_that_holds_no_volume(tmp_path):
+    """A part entirely covered by a later one cannot take watts (NOTES.md §3: later part wins)."""
+    d = minimal_model_dict()
+    d["parts"].append(dict(d["parts"][0], name="shell", origin_mm=[-1, -1, -1], size_mm=[12, 12, 12]))
+    model = solver.parse_model(d)
+    with pytest.raises(solver.ModelError) as err:
+        solver.build_problem(model)
+    assert err.value.first_path == "heat_loads[0].part" and "no volume" in str(err.value)
+    d["heat_loads"] = []
+    problem = solver.build_problem(solver.parse_model(d))
+    assert any("'cube'" in w and "covered" in w for w in problem.warnings)
+    assert any("'all'" in w and "no exposed face" in w for w in problem.warnings)
+
+
 def test_save_then_load_round_trip(tmp_path):
     d = minimal_model_dict(probes=[{"name": "centre", "at_mm": [5.0, 5.0, 5.0]}])
     m = solver.parse_model(d)
