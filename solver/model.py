@@ -218,9 +218,45 @@ def _path_of(loc) -> str:
     return out
 
 
+_TYPE_MISMATCH = ("float_type", "list_type", "int_type", "string_type")
+
+
+def _is_branch_tag(item) -> bool:
+    """pydantic's name of a union member in an error location, e.g. ``list[constrained-float]``."""
+    return isinstance(item, str) and (item in ("float", "int", "str", "constrained-float", "constrained-int")
+                                      or item.startswith("list["))
+
+
+def _union_errors(errors) -> list:
+    """Drop union members' tags from locations and keep the member that matches the input.
+
+    For ``conductivity`` (a number or a list of three), a list input must not also be told
+    "must be a number", nor a number "must be a list"; if no member matches, one message says both.
+    """
+    out, branches = [], {}
+    for e in errors:
+        loc = tuple(e["loc"])
+        cut = next((i for i, item in enumerate(loc) if _is_branch_tag(item)), None)
+        if cut is None:
+            out.append(e)
+            continue
+        e = dict(e, loc=loc[:cut] + loc[cut + 1:])
+        branches.setdefault(loc[:cut], []).append(e)
+    for base, errs in branches.items():
+        relevant = [e for e in errs if e["type"] not in _TYPE_MISMATCH or len(e["loc"]) > len(base)]
+        if relevant:
+            out.extend(relevant)
+        else:
+            shown = errs[0].get("input")
+            out.append({"loc": base, "type": "value_error", "input": shown,
+                        "msg": "must be a number or a list of three numbers (x, y, z)"
+                               + (f" (got {json.dumps(shown)})" if _jsonable(shown) else "")})
+    return out
+
+
 def _format_pydantic(err: ValidationError) -> list[tuple[str, str]]:
     issues = []
-    for e in err.errors(include_url=False):
+    for e in _union_errors(err.errors(include_url=False)):
         path = _path_of(e["loc"])
         kind = e["type"]
         msg = _MESSAGES.get(kind)
