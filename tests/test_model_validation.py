@@ -87,6 +87,18 @@ CASES = [
      "run.mass", "lumped"),
     ("pulse too fast for the run", _load(dict(PULSE, period_s=1e-6)), "heat_loads[0].profile.period_s",
      "5 million"),
+    ("negative conductivity", _set(("materials",), {"m": {"conductivity": -1.0, "density": 1.0,
+                                                            "specific_heat": 1.0}}),
+     "materials.m.conductivity", "greater than 0"),
+    ("negative orthotropic conductivity", _set(("materials",), {"m": {"conductivity": [1.0, -1.0, 1.0],
+                                                                      "density": 1.0, "specific_heat": 1.0}}),
+     "materials.m.conductivity[1]", "greater than 0"),
+    ("two conductivities", _set(("materials",), {"m": {"conductivity": [1.0, 2.0], "density": 1.0,
+                                                        "specific_heat": 1.0}}),
+     "materials.m.conductivity", "at least 3"),
+    ("text conductivity", _set(("materials",), {"m": {"conductivity": "high", "density": 1.0,
+                                                       "specific_heat": 1.0}}),
+     "materials.m.conductivity", "a number or a list of three numbers"),
     ("min layers zero", _set(("mesh", "min_layers"), 0), "mesh.min_layers", "greater than or equal to 1"),
     ("bad ambient", _set(("convection", 0, "ambient_c"), "warm"), "convection[0].ambient_c", "number"),
 ]
@@ -103,6 +115,16 @@ def test_bad_input_names_field_and_problem(mutate, path, words):
     text = e.describe()
     assert text.startswith(f"model.json: {path}: "), text
     assert words.lower() in text.lower(), text
+
+
+def test_union_fields_report_one_user_path():
+    """A number-or-list field reports the member that matches the input, never pydantic's tags."""
+    d = minimal_model_dict()
+    d["materials"] = {"m": {"conductivity": [1.0, -1.0, 1.0], "density": 1.0, "specific_heat": 1.0}}
+    with pytest.raises(solver.ModelError) as err:
+        solver.parse_model(d)
+    assert [p for p, _ in err.value.issues] == ["materials.m.conductivity[1]"]
+    assert "constrained" not in str(err.value) and "must be a number" not in str(err.value)
 
 
 def test_the_base_model_is_valid():
