@@ -179,3 +179,34 @@ def test_thermgui_command_opens_a_window(tmp_path):
     assert f"TITLE {SAMPLE.name}[*] — thermgui {n_parts} True" in r.stdout
     # a normal close keeps the window layout for next time
     assert "geometry" in (tmp_path / "settings.ini").read_text()
+
+
+def test_open_a_results_folder(open_main_window, tmp_path):
+    """`thermgui open FOLDER` on a finished run opens the model stored with the run
+    (showing the stored results is the results module's part, tested there)."""
+    from solver.cli import solve_to_folder
+    from solver.model import parse_model
+
+    cube = {"format": "thermgui-model", "version": 1, "title": "warm cube",
+            "parts": [{"name": "cube", "material": "aluminium-6061", "origin_mm": [0, 0, 0],
+                       "size_mm": [10, 10, 10], "rated_c": 100.0}],
+            "heat_loads": [{"part": "cube", "profile": {"type": "constant", "value": 1.0}}],
+            "convection": [{"name": "all", "part": "cube", "side": "exposed", "h": 10.0}],
+            "mesh": {"cell_mm": 5.0, "min_layers": 2},
+            "run": {"duration_s": 10.0, "step_s": 1.0, "scheme": "backward-euler", "mass": "lumped",
+                    "output_every_s": 5.0}}
+    model_file = tmp_path / "cube.json"
+    model_file.write_text(json.dumps(cube))
+    out = tmp_path / "cube results"
+    assert solve_to_folder(model_file, out, quiet=True) == 0
+    stored = json.loads((out / "run.json").read_text())["model"]
+    w = open_main_window(out)
+    assert w.prompts.errors() == []
+    assert w.document.model_dict() == parse_model(stored).to_json_dict()
+    assert w.document.path is None and not w.document.dirty
+    # a damaged results folder is reported and changes nothing
+    before = w.document.model_dict()
+    (out / "run.json").write_text("{ broken")
+    assert not w.fileops.open_path(out)
+    assert "cube results" in w.prompts.errors()[-1] and "damaged" in w.prompts.errors()[-1]
+    assert w.document.model_dict() == before
