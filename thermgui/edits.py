@@ -9,7 +9,10 @@ from __future__ import annotations
 
 import copy
 
-KINDS = ("parts", "heat_loads", "convection", "probes")
+from solver.materials import BUILTIN_MATERIALS
+
+KINDS = ("parts", "heat_loads", "convection", "probes", "materials")
+LIST_KINDS = KINDS[:4]  # "materials" is a name -> properties object in the file, a list here
 FACES = ("x-", "x+", "y-", "y+", "z-", "z+")
 
 
@@ -43,7 +46,20 @@ def unique_name(base: str, taken) -> str:
 
 
 def names_of(d: dict, kind: str) -> list[str]:
+    if kind == "materials":
+        return list(d.get("materials", {}))
     return [it.get("name", "") for it in d.get(kind, [])]
+
+
+def items_of(d: dict, kind: str) -> list[dict]:
+    """The items of a kind as a list of dicts (materials as ``{"name": ..., **properties}``)."""
+    if kind == "materials":
+        return [{"name": k, **v} for k, v in d.get("materials", {}).items()]
+    return d.get(kind, [])
+
+
+def _set_materials(d: dict, items: list[dict]) -> None:
+    d["materials"] = {it["name"]: {k: v for k, v in it.items() if k != "name"} for it in items}
 
 
 def model_bounds(d: dict) -> tuple[list[float], list[float]]:
@@ -69,6 +85,13 @@ def new_item(d: dict, kind: str, near_part: str | None = None) -> dict:
     if kind == "convection":
         return {"name": unique_name("new face", names_of(d, "convection")), "part": first, "side": "exposed",
                 "h": 8.0}
+    if kind == "materials":
+        base = None
+        if near_part and near_part in names_of(d, "parts"):
+            base = parts[names_of(d, "parts").index(near_part)]["material"]
+        spec = _material_spec(d, base) or {"conductivity": 1.0, "density": 1000.0, "specific_heat": 1000.0}
+        name = unique_name(f"{base} (own data)" if base else "new material", names_of(d, "materials"))
+        return {"name": name, **spec}
     if kind == "probes":
         if near_part and near_part in names_of(d, "parts"):
             p = parts[names_of(d, "parts").index(near_part)]
@@ -80,9 +103,23 @@ def new_item(d: dict, kind: str, near_part: str | None = None) -> dict:
     raise KeyError(kind)
 
 
+def _material_spec(d: dict, name: str | None) -> dict | None:
+    """Properties of a material of the model or the built-in library, in the file's form."""
+    if not name:
+        return None
+    if name in d.get("materials", {}):
+        return clone(d["materials"][name])
+    m = BUILTIN_MATERIALS.get(name)
+    return m.to_json() if m is not None else None
+
+
 def add_item(d: dict, kind: str, item: dict) -> tuple[dict, int]:
     """Append ``item``; returns the new dict and the item's index."""
     out = clone(d)
+    if kind == "materials":
+        items = items_of(out, kind) + [clone(item)]
+        _set_materials(out, items)
+        return out, len(items) - 1
     out.setdefault(kind, []).append(clone(item))
     return out, len(out[kind]) - 1
 
@@ -90,16 +127,31 @@ def add_item(d: dict, kind: str, item: dict) -> tuple[dict, int]:
 def duplicate_item(d: dict, kind: str, index: int) -> tuple[dict, int]:
     """Copy item ``index`` right after itself under a fresh name; parts keep their place."""
     out = clone(d)
-    item = clone(out[kind][index])
+    items = [clone(it) for it in items_of(out, kind)]
+    item = clone(items[index])
     if "name" in item:
         item["name"] = unique_name(item["name"] + " copy", names_of(out, kind))
-    out[kind].insert(index + 1, item)
+    items.insert(index + 1, item)
+    if kind == "materials":
+        _set_materials(out, items)
+    else:
+        out[kind] = items
     return out, index + 1
 
 
 def rename_item(d: dict, kind: str, index: int, new_name: str) -> dict:
-    """Rename; renaming a part also updates the heat loads and convection faces that name it."""
+    """Rename; renaming a part also updates the heat loads and convection faces that name it,
+    renaming a material updates the parts made of it."""
     out = clone(d)
+    if kind == "materials":
+        items = items_of(out, kind)
+        old = items[index]["name"]
+        items[index]["name"] = new_name
+        _set_materials(out, items)
+        for p in out.get("parts", []):
+            if p.get("material") == old:
+                p["material"] = new_name
+        return out
     old = out[kind][index].get("name")
     out[kind][index]["name"] = new_name
     if kind == "parts":
@@ -119,6 +171,11 @@ def dependents(d: dict, part_name: str) -> dict[str, list[int]]:
 def delete_item(d: dict, kind: str, index: int) -> dict:
     """Remove an item; deleting a part also removes its heat loads and convection faces."""
     out = clone(d)
+    if kind == "materials":
+        items = items_of(out, kind)
+        items.pop(index)
+        _set_materials(out, items)
+        return out
     item = out[kind].pop(index)
     if kind == "parts":
         name = item.get("name")
@@ -193,7 +250,7 @@ def place_onto(d: dict, index: int, target: int, face: str) -> dict:
 
 def item_label(d: dict, kind: str, index: int) -> str:
     """Short text for lists: the name, or for heat loads the part and the profile in watts."""
-    it = d[kind][index]
+    it = items_of(d, kind)[index]
     if kind != "heat_loads":
         return it.get("name", "?")
     return f"{it.get('part', '?')}: {profile_summary(it.get('profile', {}), 'W')}"

@@ -1,4 +1,5 @@
-"""The model's items as a tree: study settings, parts, heat loads, convection faces, probes.
+"""The model's items as a tree: study settings, parts, heat loads, convection faces, probes and
+the model's own materials.
 
 Each leaf carries ``(kind, index)``; ``kind`` is one of :data:`thermgui.edits.KINDS` or
 "study". Part rows have a check box that shows or hides the part in the 3D view.
@@ -14,7 +15,7 @@ from .edits import item_label
 
 ROLE = Qt.UserRole
 GROUPS = [("parts", "Parts"), ("heat_loads", "Heat loads"), ("convection", "Convection faces"),
-          ("probes", "Probes")]
+          ("probes", "Probes"), ("materials", "Own materials")]
 STUDY_LABEL = "Study settings"
 MARK_COLOUR = QColor("#b0102f")
 

@@ -25,7 +25,8 @@ APP_NAME = "thermgui"
 CAUTION = ("Results are engineering estimates from a conduction model with assumed convection "
            "coefficients. Confirm them by measurement on real hardware, and defer to the applicable "
            "safety standards, codes and licensed practice before relying on them.")
-KIND_WORDS = {"parts": "part", "heat_loads": "heat load", "convection": "convection face", "probes": "probe"}
+KIND_WORDS = {"parts": "part", "heat_loads": "heat load", "convection": "convection face", "probes": "probe",
+              "materials": "material"}
 
 
 class MainWindow(QMainWindow):
@@ -76,7 +77,7 @@ class MainWindow(QMainWindow):
         self._build_toolbar()
         self.item_tree.setContextMenuPolicy(Qt.ActionsContextMenu)
         a = self.actions_
-        for key in ("add_part", "add_load", "add_face", "add_probe", None, "duplicate", "rename", "delete", None,
+        for key in ("add_part", "add_load", "add_face", "add_probe", "add_material", None, "duplicate", "rename", "delete", None,
                     "place"):
             if key is None:
                 sep = QAction(self)
@@ -156,6 +157,8 @@ class MainWindow(QMainWindow):
                   "Add a convection face to the selected part")
         self._act("add_probe", "Add Pro&be", lambda: self.add_item("probes"), "Ctrl+Shift+R", None,
                   "Add a temperature probe at the selected part's centre")
+        self._act("add_material", "Add &Material", lambda: self.add_item("materials"), "Ctrl+Shift+M", None,
+                  "Add a material of this model (starts from the selected part's material)")
         self._act("duplicate", "D&uplicate", self.duplicate_selected, "Ctrl+D", None, "Copy the selected item")
         self._act("rename", "Rena&me", self.rename_selected, "F2", None, "Rename the selected item")
         self._act("delete", "&Delete", self.delete_selected, QKeySequence.Delete, S.SP_TrashIcon,
@@ -193,7 +196,7 @@ class MainWindow(QMainWindow):
         m = self.menus["edit"] = mb.addMenu("&Edit")
         m.addActions([a["undo"], a["redo"]])
         m.addSeparator()
-        m.addActions([a["add_part"], a["add_load"], a["add_face"], a["add_probe"]])
+        m.addActions([a["add_part"], a["add_load"], a["add_face"], a["add_probe"], a["add_material"]])
         m.addSeparator()
         m.addActions([a["duplicate"], a["rename"], a["delete"]])
         m.addSeparator()

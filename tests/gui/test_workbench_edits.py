@@ -99,3 +99,20 @@ def test_negative_size_is_refused_by_the_model_check(sample):
     with pytest.raises(ModelError) as e:
         parse_model(bad)
     assert e.value.first_path == "parts[0].size_mm[1]"
+
+
+def test_own_materials_add_rename_delete(sample):
+    board = names(sample).index("main board")
+    d, i = edits.add_item(sample, "materials", edits.new_item(sample, "materials", "main board"))
+    parse_model(d)
+    # starts from the part's library material (the layered board: 30 / 30 / 0.4 W/(m K))
+    assert d["materials"]["pcb-4layer-effective (own data)"]["conductivity"] == [30.0, 30.0, 0.4]
+    d = edits.set_value(d, ("parts", board, "material"), "pcb-4layer-effective (own data)")
+    renamed = edits.rename_item(d, "materials", i, "board A rev 2")
+    parse_model(renamed)
+    assert renamed["parts"][board]["material"] == "board A rev 2"
+    assert list(renamed["materials"]) == ["board A rev 2"]
+    # deleting a material that a part still uses leaves an invalid model: the check names the part
+    with pytest.raises(ModelError) as e:
+        parse_model(edits.delete_item(renamed, "materials", i))
+    assert e.value.first_path == f"parts[{board}].material"

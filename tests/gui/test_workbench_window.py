@@ -312,3 +312,32 @@ def test_plain_keys_in_view_do_not_reach_vtk(main_window):
     assert not w.viewport.plotter._closed
     click_view(w, [60, 40, 40])  # the view still answers
     assert w.viewport.selected_part == "lid"
+
+
+def test_own_material_from_datasheet(main_window):
+    w = main_window
+    board = w.document.model.part_index("main board")
+    w.item_tree.select("parts", board)
+    w.actions_["add_material"].trigger()
+    name = "pcb-4layer-effective (own data)"
+    assert list(w.document.model.materials) == [name]
+    assert w.item_tree.current() == ("materials", 0)
+    form = w.properties.forms["materials"]
+    assert form.kxyz.isVisibleTo(form) and not form.k.isVisibleTo(form)
+    type_into(form.kxyz.fields[2].edit, "0.55")  # through-thickness value from a datasheet
+    assert w.document.model.materials[name].conductivity == [30.0, 30.0, 0.55]
+    type_into(form.rho.edit, "-3")
+    assert "materials." in w.prompts.errors()[-1] and "density" in w.prompts.errors()[-1]
+    assert w.document.model.materials[name].density == 2200.0
+    # the part picks it up from its material list, then a rename follows into the part
+    w.item_tree.select("parts", board)
+    w.properties.forms["parts"].material.choose(name)
+    assert part(w, "main board").material == name
+    w.item_tree.select("materials", 0)
+    type_into(form.name, "board rev B")
+    assert part(w, "main board").material == "board rev B"
+    assert "main board" in form.used.text()
+    # deleting it while the board uses it is refused, naming the part's field
+    w.actions_["delete"].trigger()
+    assert f"parts[{board}].material" in w.prompts.errors()[-1]
+    assert "board rev B" in w.document.model.materials

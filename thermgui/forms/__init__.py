@@ -5,10 +5,10 @@ from PySide6.QtCore import Qt, Signal
 from PySide6.QtWidgets import QLabel, QScrollArea, QStackedWidget, QVBoxLayout, QWidget
 
 from .. import edits
-from .item_forms import ConvectionForm, HeatLoadForm, PartForm, ProbeForm, StudyForm
+from .item_forms import ConvectionForm, HeatLoadForm, MaterialForm, PartForm, ProbeForm, StudyForm
 
 KIND_TITLES = {"parts": "Part", "heat_loads": "Heat load", "convection": "Convection face", "probes": "Probe",
-               "study": "Study settings"}
+               "study": "Study settings", "materials": "Material"}
 
 
 class PropertyPanel(QWidget):
@@ -35,7 +35,7 @@ class PropertyPanel(QWidget):
         self.empty.setMargin(8)
         self.stack.addWidget(self.empty)
         self.forms = {"parts": PartForm(self), "heat_loads": HeatLoadForm(self), "convection": ConvectionForm(self),
-                      "probes": ProbeForm(self), "study": StudyForm(self)}
+                      "probes": ProbeForm(self), "study": StudyForm(self), "materials": MaterialForm(self)}
         self._pages = {}
         for kind, f in self.forms.items():
             scroll = QScrollArea()  # one per form, so each scrolls only when it is itself too tall

@@ -51,7 +51,7 @@ class ItemForm(QWidget):
 
     def kind_word(self) -> str:
         return {"parts": "part", "heat_loads": "heat load", "convection": "convection face",
-                "probes": "probe"}.get(self.kind, self.kind)
+                "probes": "probe", "materials": "material"}.get(self.kind, self.kind)
 
     def commit(self, path: tuple, value, label: str) -> bool:
         """Set one value (``path`` inside the model dict) as one undoable edit."""
@@ -303,6 +303,7 @@ class StudyForm(ItemForm):
     def load(self):
         d = self.doc.model_dict()
         self.title.setText(d.get("title", ""))
+        self.title.setCursorPosition(0)  # show the start of a long title
         for path, f in self.numbers.items():
             node = d
             for k in path:
@@ -317,3 +318,79 @@ class StudyForm(ItemForm):
         d.setdefault("run", {})
         new = edits.set_value(d, path, value)
         return self.doc.try_edit(new, f"Set {label} of the study", self.panel.report, ("study", 0), ("study", 0))
+
+
+class MaterialForm(ItemForm):
+    """A material of this model: conductivity W/(m·K) (one value, or x, y, z for layered boards),
+    density kg/m³, specific heat J/(kg·K). It overrides a built-in material of the same name."""
+
+    kind = "materials"
+
+    def __init__(self, panel):
+        super().__init__(panel)
+        self.name = self.name_edit(self.rename)
+        self.direction = QComboBox()
+        self.direction.addItems(["same in every direction", "different along x, y, z"])
+        self.direction.activated.connect(self._direction_changed)
+        self.k = NumberField("W/(m·K)")
+        self.k.committed.connect(lambda v: self.set_prop("conductivity", v, "conductivity"))
+        self.k.rejected.connect(lambda t: self.reject_text("conductivity", t))
+        self.kxyz = Vec3Field("W/(m·K)")
+        self.kxyz.committed.connect(self._k_axis)
+        self.kxyz.rejected.connect(lambda a, t: self.reject_text(f"conductivity {AXES[a]}", t))
+        self.rho = NumberField("kg/m³")
+        self.rho.committed.connect(lambda v: self.set_prop("density", v, "density"))
+        self.rho.rejected.connect(lambda t: self.reject_text("density", t))
+        self.cp = NumberField("J/(kg·K)")
+        self.cp.committed.connect(lambda v: self.set_prop("specific_heat", v, "specific heat"))
+        self.cp.rejected.connect(lambda t: self.reject_text("specific heat", t))
+        self.used = QLabel()
+        self.used.setWordWrap(True)
+        self.used.setStyleSheet("color: #5a6472;")
+        L = self.layout_
+        L.addRow("Name", self.name)
+        L.addRow("Conductivity", self.direction)
+        L.addRow("", self.k)
+        L.addRow("", self.kxyz)
+        L.addRow("Density", self.rho)
+        L.addRow("Specific heat", self.cp)
+        L.addRow(self.used)
+
+    def item(self, d: dict) -> dict:
+        return edits.items_of(d, "materials")[self.index]
+
+    def set_prop(self, key: str, value, label: str) -> bool:
+        name = self.item(self.doc.model_dict())["name"]
+        return self.commit(("materials", name, key), value, label)
+
+    def _k_axis(self, axis: int, value) -> None:
+        k = self.item(self.doc.model_dict())["conductivity"]
+        ks = list(k) if isinstance(k, list) else [k, k, k]
+        ks[axis] = value
+        self.set_prop("conductivity", ks, f"conductivity {AXES[axis]}")
+
+    def _direction_changed(self, i: int) -> None:
+        k = self.item(self.doc.model_dict())["conductivity"]
+        if i == 1 and not isinstance(k, list):
+            self.set_prop("conductivity", [k, k, k], "conductivity directions")
+        elif i == 0 and isinstance(k, list):
+            self.set_prop("conductivity", max(k), "conductivity directions")
+
+    def load(self):
+        d = self.doc.model_dict()
+        it = self.item(d)
+        self.name.setText(it["name"])
+        k = it["conductivity"]
+        layered = isinstance(k, list)
+        self.direction.setCurrentIndex(1 if layered else 0)
+        self.k.setVisible(not layered)
+        self.kxyz.setVisible(layered)
+        if layered:
+            self.kxyz.set_values(k)
+        else:
+            self.k.set_value(k)
+        self.rho.set_value(it["density"])
+        self.cp.set_value(it["specific_heat"])
+        users = [p["name"] for p in d["parts"] if p["material"] == it["name"]]
+        self.used.setText(("Used by: " + ", ".join(users)) if users else "Not used by any part yet: pick it "
+                          "in a part's Material list.")
