@@ -23,8 +23,6 @@ class PartChart(pg.PlotWidget):
         self.plotItem.setLabel("left", "Part maximum", units="°C")
         self.plotItem.getAxis("left").enableAutoSIPrefix(False)
         self.plotItem.getAxis("bottom").enableAutoSIPrefix(False)
-        self.legend = self.plotItem.addLegend(offset=(-10, -10), labelTextSize="8pt", brush=(255, 255, 255, 210),
-                                              pen=pg.mkPen("#b0b8c0"))
         self.cursor = pg.InfiniteLine(angle=90, movable=False, pen=pg.mkPen(CURSOR_COLOUR, width=1.5))
         self.plotItem.addItem(self.cursor, ignoreBounds=True)
         self.setMouseEnabled(x=False, y=False)
@@ -58,18 +56,19 @@ class PartChart(pg.PlotWidget):
         if ys:  # keep the limit lines and their labels inside the plot
             lo, hi = min(ys), max(ys)
             pad = max(0.5, 0.1 * (hi - lo))
-            self.plotItem.setYRange(lo - pad, hi + pad, padding=0)
+            self.plotItem.setYRange(lo - pad, hi + 1.5 * pad, padding=0)  # room for the top limit's label
 
     def _rebuild(self, names, ratings, unit) -> None:
         self.plotItem.clear()
-        self.legend.clear()
         self.plotItem.addItem(self.cursor, ignoreBounds=True)
         self.curves, self.limits = {}, {}
         self._unit = unit
         self.plotItem.setLabel("bottom", "Time", units=unit[0])
+        keys = []  # the legend sits above the plot as a title line, so it never covers a curve
         for k, name in enumerate(names):
             colour = LINE_COLOURS[k % len(LINE_COLOURS)]
-            self.curves[name] = self.plotItem.plot([], [], pen=pg.mkPen(colour, width=2), name=name,
+            keys.append(f"<span style='color:{colour}'>━ {_html(name)}</span>")
+            self.curves[name] = self.plotItem.plot([], [], pen=pg.mkPen(colour, width=2),
                                                    symbolSize=4, symbolBrush=colour, symbolPen=None)
             r = ratings.get(name)
             if r is not None:
@@ -79,6 +78,9 @@ class PartChart(pg.PlotWidget):
                                        labelOpts={"position": 0.05, "color": colour, "anchors": [(0, 1), (0, 1)]})
                 self.plotItem.addItem(line)
                 self.limits[name] = line
+        title = "&nbsp;&nbsp;".join(keys) + ("&nbsp;&nbsp;<span style='color:#555'>- - rating</span>"
+                                            if self.limits else "")
+        self.plotItem.setTitle(title, size="9pt")
 
     def set_cursor(self, time_s: float) -> None:
         self.cursor.setPos(time_s / self._unit[1])
@@ -95,3 +97,7 @@ class PartChart(pg.PlotWidget):
         if not self.plotItem.vb.sceneBoundingRect().contains(event.scenePos()):
             return
         self.timeClicked.emit(self.time_at_scene(event.scenePos()))
+
+
+def _html(s: str) -> str:
+    return s.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")

@@ -31,7 +31,7 @@ from .worker import RunWorker, start_worker
 
 LIVE_REDRAW_MS = 300  # shortest pause between live redraws while a run streams frames
 LIVE_DUTY = 0.05  # live redraws aim at this share of the wall time (the solve shares the CPU) ...
-LIVE_LONGEST_MS = 3000  # ... but the view is refreshed at least this often while a run streams
+LIVE_LONGEST_MS = 10000  # ... but the view is refreshed at least this often while a run streams
 CUT_CHOICES = [("Whole model", None), ("Cut across x", "x"), ("Cut across y", "y"), ("Cut across z", "z")]
 
 
@@ -291,7 +291,8 @@ class ResultsController(QObject):
         self.export_action.setEnabled(True)
         over = s.ever_over()
         note = f"; over rating: {', '.join(sorted(over))}" if over else "; no part over its rating"
-        self.status.finished(f"Finished: {s.n_frames} outputs in {s.folder}{note}")
+        self.status.finished(f"Finished: {s.n_frames} outputs, kept in {s.folder.name}{note}")
+        self.status.detail.setToolTip(str(s.folder))
         self.show_index(self.timeline.index)
 
     def _on_failed(self, headline: str, details: str, issues) -> None:
@@ -344,7 +345,8 @@ class ResultsController(QObject):
         self.table.set_rows(store.peak_rows)
         self.export_action.setEnabled(True)
         self.status.started(f"Results of {Path(folder).name}", store.duration_s)
-        self.status.finished(f"Opened {store.n_frames} outputs from {folder} (not solved again)")
+        self.status.finished(f"Opened {store.n_frames} outputs from {Path(folder).name} (not solved again)")
+        self.status.detail.setToolTip(str(folder))
         self.timeline.blockSignals(True)
         self.timeline.set_times(store.times, store.duration_s)
         self.timeline.blockSignals(False)
