@@ -341,3 +341,23 @@ def test_own_material_from_datasheet(main_window):
     w.actions_["delete"].trigger()
     assert f"parts[{board}].material" in w.prompts.errors()[-1]
     assert "board rev B" in w.document.model.materials
+
+
+def test_delete_key_in_a_field_edits_text_not_the_model(main_window):
+    w = main_window
+    w.activateWindow()
+    assert QTest.qWaitForWindowActive(w)
+    n = len(w.document.model.parts)
+    w.item_tree.select("parts", w.document.model.part_index("regulator"))
+    field = w.properties.forms["parts"].name
+    field.setFocus()
+    field.setCursorPosition(0)
+    QTest.keyClick(field, Qt.Key_Delete)
+    assert field.text() == "egulator" and len(w.document.model.parts) == n
+    QTest.keyClick(field, Qt.Key_Return)  # confirm: a rename, not a deletion
+    assert "egulator" in [p.name for p in w.document.model.parts]
+    # in the list, the same key deletes the selected part
+    w.item_tree.setFocus()
+    QTest.keyClick(w.item_tree, Qt.Key_Delete)
+    assert len(w.document.model.parts) == n - 1
+    assert "egulator" not in [p.name for p in w.document.model.parts]
