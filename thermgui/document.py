@@ -52,6 +52,7 @@ class ModelDocument(QObject):
         self.path: Path | None = Path(path) if path else None
         self.undo_stack = QUndoStack(self)
         self._recovered = False
+        self.template_name: str | None = None  # a bundled sample opened as an unsaved copy
         self.undo_stack.cleanChanged.connect(self._clean_changed)
 
     # ------------------------------------------------------------ state
@@ -71,7 +72,9 @@ class ModelDocument(QObject):
 
     @property
     def display_name(self) -> str:
-        return self.path.name if self.path else "untitled"
+        if self.path:
+            return self.path.name
+        return f"{self.template_name} (sample copy)" if self.template_name else "untitled"
 
     # ------------------------------------------------------------ editing
     def edit(self, new_dict: dict, text: str, select=None, select_before=None) -> Model:
@@ -99,11 +102,14 @@ class ModelDocument(QObject):
             self.selectRequested.emit(select[0], select[1])
 
     # ------------------------------------------------------------ whole-document changes
-    def reset(self, model: Model, path: Path | None, recovered: bool = False) -> None:
-        """Start over with another model (new/open/recover): clears the undo history."""
+    def reset(self, model: Model, path: Path | None, recovered: bool = False,
+              template_name: str | None = None) -> None:
+        """Start over with another model (new/open/recover): clears the undo history.
+        ``template_name``: the model is an unsaved copy of that bundled sample."""
         self.undo_stack.clear()
         self.model = model
         self.path = Path(path) if path else None
+        self.template_name = template_name if not path else None
         self._recovered = recovered
         self.undo_stack.setClean()
         self.pathChanged.emit()
@@ -113,6 +119,7 @@ class ModelDocument(QObject):
 
     def mark_saved(self, path: Path) -> None:
         self.path = Path(path)
+        self.template_name = None
         self._recovered = False
         self.undo_stack.setClean()
         self.pathChanged.emit()

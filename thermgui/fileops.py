@@ -38,6 +38,16 @@ def state_dir() -> Path:
     return Path(loc) if loc else Path.home() / ".thermgui"
 
 
+def is_bundled_sample(path) -> bool:
+    """True for a model file in the samples folder shipped with the program."""
+    from .cli import SAMPLES_DIR
+
+    try:
+        return Path(path).resolve().parent == SAMPLES_DIR.resolve()
+    except OSError:
+        return False
+
+
 def open_settings() -> QSettings:
     d = state_dir()
     d.mkdir(parents=True, exist_ok=True)
@@ -144,6 +154,7 @@ class FileOps(QObject):
         path = Path(path)
         if ask_first and not self.maybe_discard("opening another model"):
             return False
+        template = None
         try:
             if is_run_folder(path):
                 run = load_run(path)
@@ -152,11 +163,14 @@ class FileOps(QObject):
             else:
                 model = load_model(path)
                 model_path = path
+                if is_bundled_sample(path):
+                    # open a copy: saving asks where, and runs are not written into the program's folder
+                    model_path, template = None, path.name
         except ModelError as e:
             self.prompts.error("Cannot open model",
                                f"{path} could not be opened; nothing was changed.\n\n{e.describe()}")
             return False
-        self.doc.reset(model, model_path)
+        self.doc.reset(model, model_path, template_name=template)
         if model_path is not None:
             self._remember(model_path)
         if offer_recovery:
@@ -171,7 +185,7 @@ class FileOps(QObject):
         return self.save_to(self.doc.path)
 
     def save_as(self) -> bool:
-        start = str(self.doc.path) if self.doc.path else "untitled.json"
+        start = str(self.doc.path) if self.doc.path else (self.doc.template_name or "untitled.json")
         path = self.prompts.save_path("Save model as", start)
         return self.save_to(Path(path)) if path else False
 

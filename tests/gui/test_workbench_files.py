@@ -166,6 +166,7 @@ def test_thermgui_command_opens_a_window(tmp_path):
             "def spy(*args, **kw):\n"
             "    w = orig(*args, **kw)\n"
             "    print('TITLE', w.windowTitle(), len(w.document.model.parts), w.isVisible(), flush=True)\n"
+            "    print('PATH', w.document.path, flush=True)\n"
             "    w.document.undo_stack.setClean()\n"
             "    QTimer.singleShot(1500, w.close)\n"
             "    return w\n"
@@ -176,8 +177,10 @@ def test_thermgui_command_opens_a_window(tmp_path):
     assert r.returncode == 0, r.stderr
     assert "Traceback" not in r.stderr
     n_parts = len(load_model(SAMPLE).parts)
-    assert f"TITLE {SAMPLE.name}[*] — thermgui {n_parts} True" in r.stdout
+    # the bundled sample opens as an unsaved copy, so saving never overwrites the shipped file
+    assert f"TITLE {SAMPLE.name} (sample copy)[*] — thermgui {n_parts} True" in r.stdout
     # a normal close keeps the window layout for next time
+    assert "PATH None" in r.stdout
     assert "geometry" in (tmp_path / "settings.ini").read_text()
 
 
