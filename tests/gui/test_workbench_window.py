@@ -361,3 +361,23 @@ def test_delete_key_in_a_field_edits_text_not_the_model(main_window):
     QTest.keyClick(w.item_tree, Qt.Key_Delete)
     assert len(w.document.model.parts) == n - 1
     assert "egulator" not in [p.name for p in w.document.model.parts]
+
+
+def test_table_profile_points(main_window):
+    w = main_window
+    w.item_tree.select("heat_loads", 1)
+    editor = w.properties.forms["heat_loads"].profile
+    editor.kind.setCurrentIndex(3)  # "Table of points"
+    prof = w.document.model.heat_loads[1].profile
+    assert prof.type == "table" and len(prof.points) == 2
+    editor.table.item(1, 1).setText("4")  # the value of the second point, W
+    assert w.document.model.heat_loads[1].profile.points[1] == [60.0, 4.0]
+    xs, ys = editor.curve.getData()
+    assert max(ys) == 4.0  # held after the last point
+    # a time that does not increase is refused, naming the point
+    editor.table.item(1, 0).setText("0")
+    assert "heat_loads[1].profile.points[1][0]" in w.prompts.errors()[-1]
+    assert w.document.model.heat_loads[1].profile.points[1] == [60.0, 4.0]
+    assert editor.table.item(1, 0).text() == "60"
+    editor._add_point()
+    assert len(w.document.model.heat_loads[1].profile.points) == 3

@@ -7,7 +7,6 @@ it would make the model invalid.
 """
 from __future__ import annotations
 
-from PySide6.QtCore import Signal
 from PySide6.QtWidgets import QComboBox, QFormLayout, QLabel, QLineEdit, QPushButton, QVBoxLayout, QWidget
 
 from solver.model import MASS_KINDS, SCHEMES, SIDES

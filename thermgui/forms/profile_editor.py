@@ -8,9 +8,10 @@ from __future__ import annotations
 
 import numpy as np
 import pyqtgraph as pg
-from PySide6.QtCore import Qt, Signal
+from PySide6.QtCore import Signal
 from PySide6.QtWidgets import (QAbstractItemView, QComboBox, QFormLayout, QHBoxLayout, QHeaderView, QLabel,
-                               QPushButton, QStackedWidget, QTableWidget, QTableWidgetItem, QVBoxLayout, QWidget)
+                               QPushButton, QSizePolicy, QStackedWidget, QTableWidget, QTableWidgetItem,
+                               QVBoxLayout, QWidget)
 
 from solver.profiles import make_profile
 
@@ -144,8 +145,6 @@ class ProfileEditor(QWidget):
 
     def _show_page(self, i: int) -> None:
         """Show page ``i`` and let the stack take that page's height (not the tallest page's)."""
-        from PySide6.QtWidgets import QSizePolicy
-
         for k in range(self.pages.count()):
             pol = QSizePolicy.Preferred if k == i else QSizePolicy.Ignored
             self.pages.widget(k).setSizePolicy(pol, pol)
