@@ -207,6 +207,15 @@ def test_run_scrub_mark_export_reopen(qtbot, tmp_path, cli_peaks, open_main_wind
     assert win2.document.model.to_json_dict() == win.document.model.to_json_dict()
     assert r2.store.folder == folder and r2.results_shown
 
+    # a run the engine refuses leaves the earlier results in place
+    d = win.document.model_dict()
+    d["run"].update(scheme="forward-euler", step_s=5.0)
+    win.document.edit(d, "explicit stepping")
+    assert res.start_run()
+    run_to_end(qtbot, win)
+    assert res.status.message.isVisible() and "run.step_s" in res.status.message.text()
+    assert (folder / "peaks.csv").read_bytes() == (cli_peaks / "peaks.csv").read_bytes()
+
 
 def test_refused_run_gives_message_and_keeps_model(qtbot, tmp_path, open_main_window):
     win, _ = make_window(open_main_window, chip_on_plate(scheme="forward-euler", step_s=5.0), tmp_path)

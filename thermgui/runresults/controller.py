@@ -177,7 +177,7 @@ class ResultsController(QObject):
         model = self.window.document.model
         out_dir = self.results_folder()
         try:
-            _clear_old_results(out_dir)
+            _check_results_folder(out_dir)
         except OSError as e:
             self.status.show_error("The results folder cannot be prepared.", f"{out_dir}: {e.strerror or e}")
             return False
@@ -187,6 +187,7 @@ class ResultsController(QObject):
         cut = self.view.cut
 
         def prepare(session):  # on the worker thread: the big-mesh work that would stall the window
+            _clear_old_results(out_dir)  # only now: a refused run leaves the earlier results alone
             store = ResultsStore.for_problem(session.problem, session.out_dir)
             return store, build_display(store.points_mm, store.tets, cut)
 
@@ -284,6 +285,7 @@ class ResultsController(QObject):
     def _on_succeeded(self, rows) -> None:
         s = self.store
         s.set_peak_rows(rows)
+        self.stale = self._model_differs()  # the model may have been edited during the run
         self._live = None
         self._new_outputs = True
         self._live_refresh()
@@ -532,11 +534,16 @@ class ResultsController(QObject):
         return False
 
 
-def _clear_old_results(folder: Path) -> None:
-    """Remove an earlier run's files from ``folder`` (only if it holds results of ours)."""
+def _check_results_folder(folder: Path) -> None:
+    """OSError unless ``folder`` is absent, empty, or holds results of ours (safe to replace)."""
     if not folder.exists():
         return
-    if is_run_folder(folder) or (folder / "field").is_dir() or not any(folder.iterdir()):
-        shutil.rmtree(folder)
-    else:
+    if not folder.is_dir() or not (is_run_folder(folder) or (folder / "field").is_dir() or not any(folder.iterdir())):
         raise OSError(f"{folder} exists and does not look like a results folder; move it away first")
+
+
+def _clear_old_results(folder: Path) -> None:
+    """Remove an earlier run's files from ``folder`` (only if it holds results of ours)."""
+    _check_results_folder(folder)
+    if folder.exists():
+        shutil.rmtree(folder)
