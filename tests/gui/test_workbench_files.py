@@ -11,7 +11,7 @@ import pytest
 from solver.model import load_model
 from thermgui.fileops import recovery_file
 
-from conftest import ROOT, SAMPLE, ScriptedPrompts
+from .guikit import ROOT, SAMPLE, ScriptedPrompts
 
 pytestmark = pytest.mark.gui
 
