@@ -148,9 +148,16 @@ def test_run_scrub_mark_export_reopen(qtbot, tmp_path, cli_peaks, open_main_wind
     assert res.timeline.index == 3
 
     # a cut keeps the scalar mapping right
-    res.cut_choice.setCurrentIndex(1)
+    res.cut_choice.setCurrentIndex(2)  # across y, half kept
     assert res.view.surface.n_points > 0
+    assert res.view.point_ids.max() < len(store.frame(3))
+    kept_y = store.points_mm[res.view.point_ids, 1]
+    assert kept_y.max() <= 0.5 * 30.0 + 3.0 + 1e-9  # no cell beyond the plane (plus one cell, 3 mm)
     assert np.array_equal(res.view.shown_scalars(), store.frame(3)[res.view.point_ids])
+    assert res.view.colour_range == pytest.approx(store.colour_range())
+    bar = win.viewport.plotter.scalar_bars["Temperature (°C)"]
+    assert bar.GetLookupTable().GetRange() == pytest.approx(store.colour_range())
+    shot(win, "results-cut.png")
     res.cut_choice.setCurrentIndex(0)
 
     # export equals `thermgui solve` on the same model, byte for byte

@@ -26,6 +26,7 @@ class PartChart(pg.PlotWidget):
         self.cursor = pg.InfiniteLine(angle=90, movable=False, pen=pg.mkPen(CURSOR_COLOUR, width=1.5))
         self.plotItem.addItem(self.cursor, ignoreBounds=True)
         self.setMouseEnabled(x=False, y=False)
+        self.plotItem.hideButtons()
         self.scene().sigMouseClicked.connect(self._on_click)
         self.curves: dict[str, pg.PlotDataItem] = {}
         self.limits: dict[str, pg.InfiniteLine] = {}

@@ -13,6 +13,7 @@ import numpy as np
 import pyvista as pv
 
 SCALARS = "temperature_c"
+BAR_TITLE = "Temperature (°C)"
 COLOUR_MAP = "inferno"
 LABEL_COLOUR = "#1d2733"
 OVER_COLOUR = "#d0103a"
@@ -106,13 +107,17 @@ class FieldView:
         self.surface, self.point_ids = surf, point_ids
         if self.actor is not None:
             self.plotter.remove_actor(self.actor, render=False)
+            if BAR_TITLE in self.plotter.scalar_bars:  # else a new bar would merge the old range
+                self.plotter.remove_scalar_bar(BAR_TITLE, render=False)
+        surf.point_data[SCALARS][:] = self._clim[0]
         self.actor = self.plotter.add_mesh(
             surf, scalars=SCALARS, cmap=COLOUR_MAP, clim=self._clim, show_edges=False, name="results::field",
             render=False, pickable=False, reset_camera=False, lighting=True,
-            scalar_bar_args={"title": "Temperature (°C)", "color": LABEL_COLOUR, "vertical": True,
+            scalar_bar_args={"title": BAR_TITLE, "color": LABEL_COLOUR, "vertical": True,
                              "position_x": 0.87, "position_y": 0.14, "height": 0.62, "width": 0.06,
                              "title_font_size": 14, "label_font_size": 12, "fmt": "%.1f", "n_labels": 6})
         self.actor.SetVisibility(self.visible)
+        self.actor.mapper.scalar_range = self._clim
         if self._field is not None:
             self.show_field(self._field, self._clim)
 
