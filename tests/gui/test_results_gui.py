@@ -168,8 +168,11 @@ def test_run_scrub_mark_export_reopen(qtbot, tmp_path, cli_peaks, open_main_wind
         exported = list(csv.reader(fh))
     assert exported[0][0] == "part" and len(exported) == 4
     # copy: tab-separated, same cells (shown sorted as on screen)
-    text = res.table.copy_to_clipboard()
-    assert QGuiApplication.clipboard().text() == text
+    QGuiApplication.clipboard().clear()
+    res.table.table.setFocus()
+    qtbot.keyClick(res.table.table, Qt.Key_C, Qt.ControlModifier)
+    text = QGuiApplication.clipboard().text()
+    assert text == res.table.copy_to_clipboard()
     lines = [l.split("\t") for l in text.splitlines()]
     assert lines[0] == exported[0]
     assert sorted(map(tuple, lines[1:])) == sorted(map(tuple, exported[1:]))
@@ -236,6 +239,10 @@ def test_refused_run_gives_message_and_keeps_model(qtbot, tmp_path, open_main_wi
     assert win.item_tree.current() == ("study", 0)
     assert json.dumps(win.document.model.model_dump(), sort_keys=True) == before
     assert res.run_action.isEnabled()
+    # a folder that holds no results is refused with a message, not a traceback
+    (tmp_path / "not-results").mkdir()
+    assert win.open_results(tmp_path / "not-results") is None
+    assert "cannot be opened" in res.status.message.text() and "not a results folder" in res.status.message.text()
 
 
 def test_stop_cancels_between_steps(qtbot, tmp_path, open_main_window):

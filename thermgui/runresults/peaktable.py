@@ -1,8 +1,8 @@
 """The peak table (the columns of peaks.csv), sortable, with CSV export and tab-separated copy."""
 from __future__ import annotations
 
-from PySide6.QtCore import Qt, Signal
-from PySide6.QtGui import QBrush, QColor, QFont, QGuiApplication
+from PySide6.QtCore import QEvent, Qt, Signal
+from PySide6.QtGui import QBrush, QColor, QFont, QGuiApplication, QKeySequence
 from PySide6.QtWidgets import (QAbstractItemView, QHBoxLayout, QHeaderView, QLabel, QPushButton, QTableWidget,
                                QTableWidgetItem, QVBoxLayout, QWidget)
 
@@ -72,6 +72,7 @@ class PeakTable(QWidget):
         lay.setContentsMargins(0, 0, 0, 0)
         lay.addLayout(row)
         lay.addWidget(self.table, 1)
+        self.table.installEventFilter(self)  # Ctrl+C in the table copies the whole table
         self.export_button.clicked.connect(self.exportRequested)
         self.copy_button.clicked.connect(self.copy_to_clipboard)
         self.table.itemSelectionChanged.connect(self._on_selection)
@@ -124,6 +125,12 @@ class PeakTable(QWidget):
     def marked_parts(self) -> set[str]:
         """Parts whose rows are marked as over their rating."""
         return {row[0] for row in self.shown_rows() if row[STATUS_COL] == "over"}
+
+    def eventFilter(self, obj, event) -> bool:
+        if obj is self.table and event.type() == QEvent.KeyPress and event.matches(QKeySequence.Copy):
+            self.copy_to_clipboard()
+            return True
+        return False
 
     def _on_selection(self) -> None:
         rows = sorted({i.row() for i in self.table.selectedItems()})
