@@ -262,3 +262,13 @@ def test_stop_cancels_between_steps(qtbot, tmp_path, open_main_window):
     # what was computed can still be scrubbed
     res.timeline.set_index(1)
     assert np.array_equal(res.view.shown_scalars(), res.store.frame(1)[res.view.point_ids])
+    # running the same mesh again keeps the drawn surface and still shows the new frames
+    surface, first = res.view.surface, res.store
+    res.start_run()
+    qtbot.waitUntil(lambda: res.store is not first and res.store.n_frames >= 2 and res.timeline.isEnabled(),
+                    timeout=60000)
+    res.stop_run()
+    run_to_end(qtbot, win)
+    assert res.view.surface is surface
+    res.timeline.set_index(1)
+    assert np.array_equal(res.view.shown_scalars(), res.store.frame(1)[res.view.point_ids])

@@ -85,7 +85,10 @@ class FieldView:
         self.attach(build_display(points_mm, tets, self.cut))
 
     def attach(self, display: "Display") -> None:
-        """Show a display prepared by :func:`build_display` (possibly on another thread)."""
+        """Show a display prepared by :func:`build_display` (possibly on another thread).
+        The same mesh again (a re-run after a load or material change) keeps the drawn surface."""
+        if self._same_mesh(display.grid):
+            return
         self.grid = display.grid
         self._field = None
         self._install(display.surface, display.point_ids)
@@ -95,6 +98,12 @@ class FieldView:
                 self.plotter.view_isometric(render=False)
             self.plotter.reset_camera(render=False, bounds=self.grid.bounds)
             self._framed_bounds = bounds
+
+    def _same_mesh(self, grid) -> bool:
+        g = self.grid
+        return (g is not None and self.actor is not None and g.n_points == grid.n_points
+                and g.n_cells == grid.n_cells and np.array_equal(g.points, grid.points)
+                and np.array_equal(g.cells, grid.cells))
 
     def set_cut(self, axis: str | None, fraction: float = 0.5) -> None:
         """Keep the cells whose centres lie below ``fraction`` of the extent along ``axis`` (None: all)."""
