@@ -116,6 +116,13 @@ class FileOps(QObject):
         self.settings.sync()
         self.recentChanged.emit()
 
+    def _forget(self, path: Path) -> None:
+        full = str(Path(path).resolve())
+        items = self.recent_files()
+        if full in items:
+            self.settings.setValue(RECENT_KEY, [p for p in items if p != full])
+            self.recentChanged.emit()
+
     def clear_recent(self) -> None:
         self.settings.setValue(RECENT_KEY, [])
         self.recentChanged.emit()
@@ -169,6 +176,8 @@ class FileOps(QObject):
         except ModelError as e:
             self.prompts.error("Cannot open model",
                                f"{path} could not be opened; nothing was changed.\n\n{e.describe()}")
+            if not path.exists():
+                self._forget(path)
             return False
         self.doc.reset(model, model_path, template_name=template)
         if model_path is not None:

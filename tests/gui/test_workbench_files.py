@@ -213,3 +213,17 @@ def test_open_a_results_folder(open_main_window, tmp_path):
     assert not w.fileops.open_path(out)
     assert "cube results" in w.prompts.errors()[-1] and "damaged" in w.prompts.errors()[-1]
     assert w.document.model_dict() == before
+
+
+def test_recent_files_menu(open_main_window, sample_copy, tmp_path):
+    w = open_main_window(sample_copy)
+    other = tmp_path / "other.json"
+    other.write_text(sample_copy.read_text())
+    assert w.fileops.open_path(other)
+    titles = [a.text() for a in w.recent_menu.actions() if a.text()]
+    assert titles[:2] == ["other.json", sample_copy.name]
+    # a recent file that has gone away: a message, and it leaves the list
+    other.unlink()
+    next(a for a in w.recent_menu.actions() if a.text() == "other.json").trigger()
+    assert "other.json" in w.prompts.errors()[-1] and "file not found" in w.prompts.errors()[-1]
+    assert [a.text() for a in w.recent_menu.actions() if a.text()][0] == sample_copy.name
