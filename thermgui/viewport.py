@@ -403,8 +403,8 @@ class Viewport(QWidget):
         """Visible parts on the ray through display pixel (x, y) (VTK display coordinates,
         origin bottom-left), nearest first, each with the face the ray enters."""
         visible = [p for p in self._parts if p["name"] not in self.hidden_parts]
-        if not visible or self.mode != "edit":
-            return []
+        if not visible:
+            return []  # (in "results" mode the boxes are hidden but still pickable)
         ren = self.plotter.renderer
         ends = []
         for z in (0.0, 1.0):

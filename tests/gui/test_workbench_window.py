@@ -265,6 +265,8 @@ def test_marks_in_tree_and_view(main_window):
     assert len(w.viewport._mark_actors) == 1
     w.viewport.set_mode("results")
     assert not any(a.GetVisibility() for a in w.viewport._actors.values())
+    click_view(w, [60, 40, 40])  # parts can still be picked over the drawn field
+    assert w.item_tree.current() == ("parts", w.document.model.part_index("lid"))
     w.viewport.set_mode("edit")
     assert all(a.GetVisibility() for a in w.viewport._actors.values())
 
