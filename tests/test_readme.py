@@ -132,6 +132,27 @@ def test_sample_paths_named_in_the_readme_exist():
         assert (ROOT / n).is_file(), n
 
 
+# ------------------------------------------------------------------ model format reference
+def schema_fields() -> list[str]:
+    """Every key of the model file, as ``section.key`` paths, from the schema classes."""
+    from solver import model as m
+
+    sections = {"": m.Model, "parts": m.Part, "materials": m.MaterialSpec, "heat_loads": m.HeatLoad,
+                "convection": m.Convection, "probes": m.Probe, "mesh": m.MeshSettings, "run": m.RunSettings,
+                "profile constant": m.ConstantProfile, "profile step": m.StepProfile,
+                "profile pulse": m.PulseProfile, "profile table": m.TableProfile}
+    return [f"{sec}.{name}".lstrip(".") for sec, cls in sections.items() for name in cls.model_fields]
+
+
+def test_model_format_reference_mentions_every_key():
+    """A key added to the schema must be documented in docs/model-format.md."""
+    doc = MODEL_FORMAT.read_text(encoding="utf-8")
+    fields = schema_fields()
+    assert len(fields) > 30
+    missing = [f for f in fields if f"`{f.split('.')[-1]}`" not in doc and f'"{f.split(".")[-1]}"' not in doc]
+    assert not missing, f"docs/model-format.md does not mention: {missing}"
+
+
 # ------------------------------------------------------------------ materials table
 BEGIN, END = "<!-- materials:begin -->", "<!-- materials:end -->"
 
