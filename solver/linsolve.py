@@ -1,7 +1,17 @@
-"""Linear solvers for the symmetric positive-definite step matrix ``M/Δt + θK``.
+"""Linear solvers for the symmetric positive-definite step matrix ``M/Δt + θK`` (W/K).
 
-:func:`make_solver` picks a method and says why: a sparse direct factorization while it is
-small enough, multigrid-preconditioned conjugate gradients beyond that.
+:func:`choose_method` picks a method and says why:
+
+* ``pardiso`` – sparse Cholesky (LDLᵀ) by Intel MKL PARDISO through ``pypardiso``, on the upper
+  triangle in symmetric positive-definite mode, while the estimated factor fits comfortably in
+  memory. pypardiso installs from PyPI as a wheel on Linux, Windows and macOS (Intel) and
+  brings MKL (an optimized BLAS) with it; scikit-sparse/CHOLMOD needs SuiteSparse to build.
+* ``multigrid`` – conjugate gradients preconditioned by classical (Ruge–Stüben) algebraic
+  multigrid from pyamg: memory linear in the node count, warm-started from the previous step.
+* ``superlu`` – scipy's SuperLU with a symmetric fill-reducing ordering, the last resort when
+  neither package is installed.
+
+Every solver has ``solve(b, x0=None)`` and ``close()``.
 """
 from __future__ import annotations
 
@@ -13,14 +23,85 @@ import scipy.sparse.linalg as spla
 
 from .errors import SolveError
 
-DIRECT_NODE_LIMIT = 60_000  # above this, scipy's SuperLU fill-in grows too large (measured roughly)
-CG_RTOL = 1e-10
+CG_RTOL = 1e-10  # relative to ‖b‖; b holds M·d/Δt, so this is far below a milli-kelvin
+CG_MAXITER = 500
+# Memory of a nested-dissection Cholesky factor on these 3D grids, measured roughly: about
+# 10 GB at 1 000 000 nodes, growing like n^(4/3) (issue 5's measurements, PARDISO and CHOLMOD).
+FACTOR_BYTES_AT_1M = 10e9
+DIRECT_MEMORY_SHARE = 0.25  # "fits comfortably": at most this share of the available memory
+DIRECT_MAX_BYTES = 2.5e9  # above this, factorization takes minutes on two cores
+ADAPTIVE_DIRECT_NODE_LIMIT = 60_000  # adaptive runs factor one matrix per step size
 
 
 @dataclass
 class SolverChoice:
     method: str
     reason: str
+
+
+def estimated_factor_bytes(n: int) -> float:
+    """Rough memory of a sparse Cholesky factor of a 3D grid matrix with ``n`` unknowns, bytes."""
+    return FACTOR_BYTES_AT_1M * (n / 1e6) ** (4.0 / 3.0)
+
+
+def have_pardiso() -> bool:
+    try:
+        import pypardiso  # noqa: F401
+    except Exception:  # ImportError, or MKL's runtime library not found
+        return False
+    return True
+
+
+def have_pyamg() -> bool:
+    try:
+        import pyamg  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
+def _available_memory() -> int:
+    from .mesh import available_memory_bytes
+
+    return available_memory_bytes()
+
+
+def choose_method(n: int, requested: str = "auto", adaptive: bool = False,
+                  available_bytes: int | None = None) -> SolverChoice:
+    """Method name and a one-line reason for a problem of ``n`` nodes."""
+    if requested not in ("auto", "direct", "multigrid", "pardiso", "superlu"):
+        raise ValueError(f"unknown linear solver {requested!r}")
+    pardiso, amg = have_pardiso(), have_pyamg()
+    if requested == "direct":
+        if pardiso:
+            return SolverChoice("pardiso", "requested a direct solver: sparse Cholesky (PARDISO)")
+        return SolverChoice("superlu", "requested a direct solver; pypardiso is not installed: SuperLU")
+    if requested == "multigrid":
+        if amg:
+            return SolverChoice("multigrid", "requested")
+        return SolverChoice("superlu", "multigrid requested but pyamg is not installed: SuperLU")
+    if requested == "pardiso" and not pardiso:
+        return SolverChoice("superlu", "PARDISO requested but pypardiso is not installed: SuperLU")
+    if requested in ("pardiso", "superlu"):
+        return SolverChoice(requested, "requested")
+    avail = available_bytes if available_bytes is not None else _available_memory()
+    est = estimated_factor_bytes(n)
+    fits = est <= min(DIRECT_MEMORY_SHARE * avail, DIRECT_MAX_BYTES)
+    size = f"{n:,} nodes, factor about {est / 1e9:.2g} GB of {avail / 1e9:.3g} GB available"
+    if fits and not (adaptive and n > ADAPTIVE_DIRECT_NODE_LIMIT):
+        if pardiso:
+            return SolverChoice("pardiso", f"{size}: sparse Cholesky (PARDISO) fits comfortably and is "
+                                           "fastest per step")
+        if not amg:
+            return SolverChoice("superlu", f"{size}: neither pypardiso nor pyamg is installed: SuperLU")
+        return SolverChoice("multigrid", f"{size}: pypardiso is not installed; multigrid CG instead")
+    if amg:
+        why = ("adaptive steps need one factorization per step size, too slow at this size"
+               if fits else "a factorization would not fit comfortably")
+        return SolverChoice("multigrid", f"{size}: {why}; multigrid CG keeps memory linear in the node count")
+    if pardiso:
+        return SolverChoice("pardiso", f"{size}: pyamg is not installed; sparse Cholesky (PARDISO) anyway")
+    return SolverChoice("superlu", f"{size}: neither pyamg nor pypardiso is installed: SuperLU as a last resort")
 
 
 class DiagonalSolver:
@@ -30,12 +111,16 @@ class DiagonalSolver:
 
     def __init__(self, diag: np.ndarray):
         self.inv = 1.0 / diag
+        self.iterations = 0
 
     def solve(self, b, x0=None):
         return self.inv * b
 
+    def close(self):
+        pass
 
-class DirectSolver:
+
+class SuperLUSolver:
     """scipy SuperLU with a symmetric fill-reducing ordering; factored once, reused every step."""
 
     name = "direct (SuperLU)"
@@ -43,13 +128,83 @@ class DirectSolver:
     def __init__(self, a: sp.spmatrix):
         self.lu = spla.splu(sp.csc_matrix(a), permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
                             options={"SymmetricMode": True})
+        self.iterations = 0
 
     def solve(self, b, x0=None):
         return self.lu.solve(b)
 
+    def close(self):
+        self.lu = None
+
+
+DirectSolver = SuperLUSolver  # the earlier name
+
+
+def _new_pardiso(pypardiso):
+    """A PyPardisoSolver in SPD mode. pypardiso searches the disk for MKL on every construction
+    unless PYPARDISO_MKL_RT names it (its documented override): remember the first hit."""
+    import os
+
+    ps = pypardiso.PyPardisoSolver(mtype=2)
+    name = getattr(ps.libmkl, "_name", None)
+    if name and "PYPARDISO_MKL_RT" not in os.environ and os.path.exists(name):
+        os.environ["PYPARDISO_MKL_RT"] = name
+    return ps
+
+
+class PardisoCholesky:
+    """MKL PARDISO, real symmetric positive definite (mtype 2), on the upper triangle in CSR.
+
+    ``upper`` is (indptr, indices, take) from :meth:`solver.assemble.GridPattern.upper`; without
+    it the upper triangle is extracted with scipy.
+    """
+
+    name = "direct (PARDISO sparse Cholesky)"
+
+    def __init__(self, a: sp.csr_matrix, upper=None):
+        import pypardiso
+
+        if upper is not None:
+            indptr, indices, take = upper
+            u = sp.csr_matrix((a.data[take], indices, indptr), shape=a.shape)
+        else:
+            u = sp.triu(a, format="csr")
+        u.sort_indices()
+        self.u = u
+        self.ps = _new_pardiso(pypardiso)
+        self.ps.size_limit_storage = 0  # keep a hash, not a copy, of the matrix
+        try:
+            self.ps.factorize(u)
+        except Exception as e:  # PyPardisoError: not positive definite, out of memory, ...
+            raise SolveError(f"PARDISO could not factor the step matrix ({e})") from None
+        self.iterations = 0
+
+    def solve(self, b, x0=None):
+        self.ps.set_phase(33)
+        x = self.ps._call_pardiso(self.u, np.ascontiguousarray(b, dtype=float))
+        return x
+
+    def factor_bytes(self) -> int:
+        """Memory PARDISO reports for the factor (permanent + factorization), bytes."""
+        return 1024 * int(max(self.ps.get_iparm(15), 0) + max(self.ps.get_iparm(16), 0))
+
+    def close(self):
+        if self.ps is not None:
+            try:
+                self.ps.free_memory(everything=True)
+            except Exception:  # pragma: no cover - already released
+                pass
+            self.ps = None
+
+    def __del__(self):
+        self.close()
+
 
 class MultigridCGSolver:
-    """Conjugate gradients preconditioned by classical algebraic multigrid (pyamg)."""
+    """Conjugate gradients preconditioned by one classical (Ruge–Stüben) AMG V-cycle (pyamg).
+
+    ``x0`` (for example the previous temperature) starts the iteration.
+    """
 
     name = "multigrid-preconditioned CG (pyamg)"
 
@@ -61,36 +216,37 @@ class MultigridCGSolver:
         self.precond = self.ml.aspreconditioner(cycle="V")
         self.rtol = rtol
         self.iterations = 0
+        self.total_iterations = 0
 
-    def solve(self, b, x0=None):
+    def solve(self, b, x0=None, atol: float = 0.0, a=None):
+        """Solve ``a x = b`` (default: the matrix the hierarchy was built for) to ‖r‖ ≤ max(rtol‖b‖, atol).
+
+        Another matrix ``a`` close to the original (a nearby step size) reuses this preconditioner.
+        """
         count = [0]
 
         def cb(_):
             count[0] += 1
 
-        x, info = spla.cg(self.a, b, x0=x0, rtol=self.rtol, atol=0.0, M=self.precond, maxiter=500, callback=cb)
+        mat = self.a if a is None else a
+        x, info = spla.cg(mat, b, x0=x0, rtol=self.rtol, atol=atol, M=self.precond, maxiter=CG_MAXITER,
+                          callback=cb)
         self.iterations = count[0]
+        self.total_iterations += count[0]
         if info != 0:
             raise SolveError(f"conjugate gradients did not converge in {count[0]} iterations")
         return x
 
-
-def choose_method(n: int, requested: str = "auto") -> SolverChoice:
-    if requested != "auto":
-        return SolverChoice(requested, "requested")
-    if n <= DIRECT_NODE_LIMIT:
-        return SolverChoice("direct", f"{n:,} nodes: a sparse factorization fits easily and is fastest per step")
-    try:
-        import pyamg  # noqa: F401
-    except ImportError:
-        return SolverChoice("direct", f"{n:,} nodes but pyamg is not installed: falling back to SuperLU")
-    return SolverChoice("multigrid", f"{n:,} nodes: factorization fill-in would be large; multigrid CG keeps "
-                                     "memory linear in the node count")
+    def close(self):
+        self.ml = None
 
 
-def make_solver(a: sp.spmatrix, method: str):
-    if method == "direct":
-        return DirectSolver(a)
+def make_solver(a: sp.spmatrix, method: str, upper=None):
+    """A solver object for matrix ``a`` by method name (see :func:`choose_method`)."""
+    if method in ("pardiso",):
+        return PardisoCholesky(a, upper)
+    if method in ("direct", "superlu"):
+        return SuperLUSolver(a)
     if method == "multigrid":
         return MultigridCGSolver(a)
     raise ValueError(f"unknown linear solver {method!r}")

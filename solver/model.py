@@ -147,6 +147,9 @@ class RunSettings(_Strict):
     scheme: Literal["backward-euler", "crank-nicolson", "forward-euler"] = "crank-nicolson"
     mass: Literal["consistent", "lumped"] = "lumped"
     output_every_s: Optional[Positive] = None
+    # adaptive steps: temperature tolerance in K (local error per step, TR-BDF2); step_s is then
+    # the first step and the restart step after jumps. Absent = fixed steps of step_s.
+    tolerance_k: Optional[Positive] = None
 
     @property
     def output_interval_s(self) -> float:
@@ -343,6 +346,9 @@ def _cross_check(m: Model) -> list[tuple[str, str]]:
     if r.scheme == "forward-euler" and r.mass != "lumped":
         issues.append(("run.mass", "forward Euler needs \"lumped\" capacity (a consistent capacity matrix "
                                    "would need a linear solve every step and loses the explicit scheme's point)"))
+    if r.tolerance_k is not None and r.scheme == "forward-euler":
+        issues.append(("run.tolerance_k", "adaptive steps (a tolerance) use an implicit scheme; remove "
+                                          "tolerance_k or choose backward-euler / crank-nicolson"))
     if r.duration_s / r.step_s > MAX_STEPS:
         issues.append(("run.step_s", "more than 5 million steps; choose a longer step"))
     # every pulse edge is a landing time, so a fast pulse forces steps of its own

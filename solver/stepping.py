@@ -4,12 +4,15 @@
 
 θ = 1 backward Euler, ½ Crank–Nicolson, 0 forward Euler (lumped capacity only, Δt below
 2/λ_max of the pencil (K, M)). The step matrix is factored once per distinct (Δt, θ).
-:class:`Stepper` is iterated by the command line and the app alike; each iteration yields a
-:class:`StepEvent`; stop iterating (or set ``cancel``) to stop between steps.
+With a temperature tolerance (``run.tolerance_k``) the steps are chosen by error control
+instead (:mod:`solver.adaptive`, TR-BDF2). :class:`Stepper` is iterated by the command line
+and the app alike; each iteration yields a :class:`StepEvent`; stop iterating (or set
+``cancel``) to stop between steps.
 """
 from __future__ import annotations
 
 import time as _time
+from collections import OrderedDict
 from dataclasses import dataclass
 from typing import Callable, Iterator
 
@@ -22,6 +25,9 @@ from .linsolve import DiagonalSolver, choose_method, make_solver
 from .timegrid import TimeStep, output_times, plan_steps
 
 THETA = {"backward-euler": 1.0, "crank-nicolson": 0.5, "forward-euler": 0.0}
+MAX_CACHED_SOLVERS = 8  # factorizations kept at once (memory stays bounded with many step sizes) ...
+SMALL_PROBLEM_NODES = 100_000  # ... and more below this size, where every ladder rung fits
+MAX_CACHED_SOLVERS_SMALL = 24
 
 
 @dataclass
@@ -63,27 +69,84 @@ def critical_step(problem) -> float:
     return 2.0 / largest_eigenvalue(problem.stiffness, problem.lumped)
 
 
+class LoadCombiner:
+    """F(t) and the heat/convection totals from the problem's load basis, without per-step waste.
+
+    Profile values are a short vector ``c(t)`` (W per heat load, °C per convection entry);
+    F = basis @ c. A combination is only re-multiplied when its coefficients change.
+    """
+
+    def __init__(self, problem):
+        self.p = problem
+        self.basis = problem._load_basis()
+        self.n_heat = len(problem.heat_profiles)
+        self.conv_sum = problem._conv_sum
+        # Σ_c b_c is non-zero on convection faces only: keep those entries for a short dot product
+        self.conv_idx = np.flatnonzero(problem._conv_b)
+        self.conv_val = problem._conv_b[self.conv_idx]
+        self._last_c = None
+        self._last_f = None
+
+    def coefficients(self, t: float, side: str) -> np.ndarray:
+        return self.p.load_coefficients(t, side)
+
+    def force(self, c: np.ndarray) -> np.ndarray:
+        """basis @ c, reusing the last product when c is unchanged."""
+        if self._last_c is None or not np.array_equal(c, self._last_c):
+            self._last_c = c.copy()
+            self._last_f = self.basis @ c
+        return self._last_f
+
+    def heat_in(self, c: np.ndarray) -> float:
+        return float(c[:self.n_heat].sum())
+
+    def convected_out(self, bd: float, c: np.ndarray) -> float:
+        """Σ ∫ h (T − T_amb) dA from ``bd`` = (Σ b_c)·d, W."""
+        return bd - float(c[self.n_heat:] @ self.conv_sum) if len(self.conv_sum) else 0.0
+
+    def bd(self, d: np.ndarray) -> float:
+        """(Σ_c b_c)·d in W (einsum: no BLAS thread start-up for a short product)."""
+        return float(np.einsum("i,i->", self.conv_val, d[self.conv_idx])) if len(self.conv_sum) else 0.0
+
+
 class Stepper:
     """Plans the steps and integrates; iterate it to run.
 
     Parameters: ``problem`` from :func:`solver.problem.build_problem`; ``cancel`` a callable
-    returning True to stop (raises :class:`Cancelled`); ``linear_solver`` "auto", "direct" or
-    "multigrid"; ``damp_after_jumps`` enables the backward-Euler start-up for Crank–Nicolson.
+    returning True to stop (raises :class:`Cancelled`); ``linear_solver`` "auto", "direct",
+    "multigrid", "pardiso" or "superlu"; ``damp_after_jumps`` enables the backward-Euler
+    start-up for Crank–Nicolson; ``tolerance_k`` (K) overrides ``run.tolerance_k`` and turns on
+    error-controlled adaptive steps.
     """
 
     def __init__(self, problem, cancel: Callable[[], bool] | None = None, linear_solver: str = "auto",
-                 damp_after_jumps: bool = True):
+                 damp_after_jumps: bool = True, tolerance_k: float | None = None):
         self.problem = problem
         run = problem.model.run
-        self.scheme = run.scheme
-        self.theta = THETA[run.scheme]
         self.cancel = cancel
+        self.tolerance_k = tolerance_k if tolerance_k is not None else getattr(run, "tolerance_k", None)
+        self.adaptive = self.tolerance_k is not None
         self.outputs = output_times(float(run.duration_s), run.output_interval_s)
-        self.steps: list[TimeStep] = plan_steps(float(run.duration_s), float(run.step_s), self.theta,
-                                                problem.breakpoints(float(run.duration_s)), self.outputs,
-                                                damp_after_jumps)
         self.critical_step_s = None
-        if self.theta < 0.5:
+        self._solvers: OrderedDict = OrderedDict()
+        self.factorizations = 0
+        self.solves = 0
+        self.rejected_steps = 0
+        if self.adaptive:
+            from .adaptive import AdaptivePlan
+
+            self.scheme = "tr-bdf2 (adaptive)"
+            self.theta = None
+            self.plan = AdaptivePlan(problem, float(self.tolerance_k))
+            self.steps: list[TimeStep] = []
+            self._n_steps_estimate = self.plan.estimated_steps()
+        else:
+            self.scheme = run.scheme
+            self.theta = THETA[run.scheme]
+            self.steps = plan_steps(float(run.duration_s), float(run.step_s), self.theta,
+                                    problem.breakpoints(float(run.duration_s)), self.outputs, damp_after_jumps)
+            self._n_steps_estimate = len(self.steps)
+        if not self.adaptive and self.theta < 0.5:
             if problem.capacity is not None:
                 raise ModelError(("run.mass", "forward Euler needs lumped capacity"))
             self.critical_step_s = critical_step(problem)
@@ -94,65 +157,105 @@ class Stepper:
                                   f"critical step is {self.critical_step_s:.4g} s (2/λ_max, λ_max = "
                                   f"{2.0 / self.critical_step_s:.4g} 1/s). Use a step of at most "
                                   f"{self.critical_step_s:.4g} s, or backward Euler / Crank–Nicolson"))
-        self.choice = choose_method(problem.n_nodes, linear_solver)
-        self._solvers: dict = {}
-        self.factorizations = 0
+        self.choice = choose_method(problem.n_nodes, linear_solver, adaptive=self.adaptive)
+        self._mass_cache: dict = {}
 
     @property
     def n_steps(self) -> int:
-        return len(self.steps)
+        """Number of steps: planned (fixed steps), or estimated until an adaptive run ends."""
+        return self._n_steps_estimate
+
+    # ------------------------------------------------------------ linear algebra helpers
+    def step_matrix(self, dt: float, theta: float) -> sp.csr_matrix:
+        return self.problem.step_matrix(dt, theta)
 
     def _solver_for(self, dt: float, theta: float):
         key = (round(dt, 12), theta)
         s = self._solvers.get(key)
-        if s is None:
-            p = self.problem
-            if theta == 0.0:
-                s = DiagonalSolver(p.lumped / dt)
-            else:
-                s = make_solver(p.mass_matrix / dt + theta * p.stiffness, self.choice.method)
-            self.factorizations += 1
-            if len(self._solvers) >= 8:  # keep memory bounded when many step sizes occur
-                self._solvers.pop(next(iter(self._solvers)))
-            self._solvers[key] = s
+        if s is not None:
+            self._solvers.move_to_end(key)
+            return s
+        p = self.problem
+        if theta == 0.0:
+            s = DiagonalSolver(p.lumped / dt)
+        else:
+            a = self.step_matrix(dt, theta)
+            upper = p.pattern.upper() if p.pattern is not None and p._shares_pattern() else None
+            s = make_solver(a, self.choice.method, upper=upper)
+        self.factorizations += 1
+        limit = MAX_CACHED_SOLVERS_SMALL if p.n_nodes < SMALL_PROBLEM_NODES else MAX_CACHED_SOLVERS
+        while len(self._solvers) >= limit:
+            _, old = self._solvers.popitem(last=False)
+            old.close()
+        self._solvers[key] = s
         return s
 
-    def _event(self, step, t, dt, d, is_output, q_in, q_out, stored, resid, t_start) -> StepEvent:
+    def mass_times(self, d: np.ndarray) -> np.ndarray:
+        """M·d in J/K·K (lumped diagonal or consistent sparse)."""
+        p = self.problem
+        return p.lumped * d if p.capacity is None else p.capacity @ d
+
+    def close(self) -> None:
+        """Release factorizations (also done when a run ends)."""
+        for s in self._solvers.values():
+            s.close()
+        self._solvers.clear()
+
+    # ------------------------------------------------------------ events
+    def _event(self, step, n_steps, t, dt, d, is_output, q_in, q_out, stored, resid, t_start) -> StepEvent:
         p = self.problem
         view = d.view()
         view.flags.writeable = False
-        return StepEvent(step, self.n_steps, t, dt, view, p.part_nodes.maxima(d), p.heat_shares @ d,
+        return StepEvent(step, n_steps, t, dt, view, p.part_nodes.maxima(d), p.heat_shares @ d,
                          p.probes @ d, is_output, q_in, q_out, stored, resid, _time.perf_counter() - t_start)
 
     def __iter__(self) -> Iterator[StepEvent]:
+        if self.adaptive:
+            from .adaptive import run_adaptive
+
+            return run_adaptive(self)
+        return self._run_fixed()
+
+    def _run_fixed(self) -> Iterator[StepEvent]:
         p = self.problem
         t_start = _time.perf_counter()
         k_mat = p.stiffness
-        m_mat = p.mass_matrix
+        loads = LoadCombiner(p)
+        n_steps = self.n_steps
         d = p.initial.astype(float).copy()
-        q_in0 = p.heat_input(0.0)
-        q_out0 = p.convected_out(d, 0.0)
-        yield self._event(0, 0.0, 0.0, d, True, q_in0, q_out0, q_in0 - q_out0, 0.0, t_start)
-        kd = k_mat @ d
-        for i, st in enumerate(self.steps, start=1):
-            if self.cancel is not None and self.cancel():
-                raise Cancelled(f"cancelled at t = {st.t0:g} s")
-            th, dt = st.theta, st.dt
-            f0 = p.load(st.t0, "right")
-            f1 = p.load(st.t1, "left")
-            rhs = m_mat @ d / dt - (1.0 - th) * kd + th * f1 + (1.0 - th) * f0
-            d_new = self._solver_for(dt, th).solve(rhs, x0=d)
-            if not np.all(np.isfinite(d_new)):
-                raise SolveError(f"non-finite temperature at t = {st.t1:g} s (step {i}); the model or step "
-                                 "is numerically unusable")
-            kd_new = k_mat @ d_new
-            # energy bookkeeping over the step (1ᵀK_cond = 0, 1ᵀM = lumped)
-            q_in = th * p.heat_input(st.t1, "left") + (1 - th) * p.heat_input(st.t0, "right")
-            q_out = th * p.convected_out(d_new, st.t1, "left") + (1 - th) * p.convected_out(d, st.t0, "right")
-            stored = float(p.lumped @ (d_new - d)) / dt
-            resid = q_in - q_out - stored
-            d, kd = d_new, kd_new
-            yield self._event(i, st.t1, dt, d, st.output, q_in, q_out, stored, resid, t_start)
+        c0 = loads.coefficients(0.0, "right")
+        bd = loads.bd(d)
+        q_in0 = loads.heat_in(c0)
+        q_out0 = loads.convected_out(bd, c0)
+        yield self._event(0, n_steps, 0.0, 0.0, d, True, q_in0, q_out0, q_in0 - q_out0, 0.0, t_start)
+        lumped = p.lumped
+        try:
+            for i, st in enumerate(self.steps, start=1):
+                if self.cancel is not None and self.cancel():
+                    raise Cancelled(f"cancelled at t = {st.t0:g} s")
+                th, dt = st.theta, st.dt
+                c0 = loads.coefficients(st.t0, "right")
+                c1 = loads.coefficients(st.t1, "left")
+                f = loads.force(th * c1 + (1.0 - th) * c0)
+                rhs = self.mass_times(d) / dt
+                if th < 1.0:
+                    rhs -= (1.0 - th) * (k_mat @ d)
+                rhs += f
+                d_new = self._solver_for(dt, th).solve(rhs, x0=d)
+                self.solves += 1
+                if not np.all(np.isfinite(d_new)):
+                    raise SolveError(f"non-finite temperature at t = {st.t1:g} s (step {i}); the model or step "
+                                     "is numerically unusable")
+                # energy bookkeeping over the step (1ᵀK_cond = 0, 1ᵀM = lumped)
+                bd_new = loads.bd(d_new)
+                q_in = th * loads.heat_in(c1) + (1 - th) * loads.heat_in(c0)
+                q_out = th * loads.convected_out(bd_new, c1) + (1 - th) * loads.convected_out(bd, c0)
+                stored = float(np.einsum("i,i->", lumped, d_new - d)) / dt
+                resid = q_in - q_out - stored
+                d, bd = d_new, bd_new
+                yield self._event(i, n_steps, st.t1, dt, d, st.output, q_in, q_out, stored, resid, t_start)
+        finally:
+            self.close()
 
 
 def run(problem, **kwargs) -> Iterator[StepEvent]:

@@ -1,0 +1,99 @@
+"""Linear solvers for the step matrix, and the automatic choice between them.
+
+Reference: scipy's general sparse solver (``spsolve``) on the same matrix.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.sparse.linalg as spla
+
+import solver
+from solver import linsolve
+from solver.stepping import Stepper
+
+
+def _problem(mass="lumped"):
+    d = {
+        "format": "thermgui-model", "version": 1, "title": "solver check (invented)",
+        "parts": [
+            {"name": "plate", "material": "aluminium-6061", "origin_mm": [0, 0, 0], "size_mm": [30, 20, 3]},
+            {"name": "board", "material": "pcb-4layer-effective", "origin_mm": [2, 2, 3], "size_mm": [26, 16, 1.6]},
+            {"name": "chip", "material": "mould-compound", "origin_mm": [10, 6, 4.6], "size_mm": [6, 6, 1.2]},
+        ],
+        "heat_loads": [{"part": "chip", "profile": {"type": "pulse", "high": 3.0, "low": 0.2, "period_s": 8,
+                                                    "duty": 0.5}}],
+        "convection": [{"name": "below", "part": "plate", "side": "z-", "h": 25.0}],
+        "mesh": {"cell_mm": 1.5, "min_layers": 2},
+        "run": {"duration_s": 12, "step_s": 0.5, "scheme": "crank-nicolson", "mass": mass, "output_every_s": 4},
+    }
+    return solver.build_problem(solver.parse_model(d))
+
+
+@pytest.fixture(scope="module")
+def system():
+    p = _problem()
+    a = p.step_matrix(0.7, 1.0)
+    b = p.lumped / 0.7 * 40.0 + p.load(1.0)
+    return p, a, b, spla.spsolve(a.tocsc(), b)
+
+
+@pytest.mark.parametrize("method", ["pardiso", "superlu", "multigrid"])
+def test_each_solver_matches_spsolve(system, method):
+    p, a, b, ref = system
+    if method == "pardiso" and not linsolve.have_pardiso():
+        pytest.skip("pypardiso not installed")
+    s = linsolve.make_solver(a, method, upper=p.pattern.upper())
+    x = s.solve(b)
+    assert np.abs(x - ref).max() < 1e-8 * np.abs(ref).max()
+    s.close()
+
+
+def test_multigrid_warm_start_and_nearby_matrix(system):
+    p, a, b, ref = system
+    s = linsolve.MultigridCGSolver(a)
+    s.solve(b)
+    cold = s.iterations
+    s.solve(b, x0=ref + 1e-6)
+    assert s.iterations < cold  # the previous answer as the start saves iterations
+    # a neighbouring step size reuses the hierarchy as preconditioner
+    a2 = p.step_matrix(0.9, 1.0)
+    b2 = p.lumped / 0.9 * 40.0 + p.load(1.0)
+    x2 = s.solve(b2, a=a2)
+    ref2 = spla.spsolve(a2.tocsc(), b2)
+    assert np.abs(x2 - ref2).max() < 1e-8 * np.abs(ref2).max()
+
+
+def test_automatic_choice_and_reason(monkeypatch):
+    gb = 1024**3
+    small = linsolve.choose_method(20_000, available_bytes=16 * gb)
+    assert small.method == ("pardiso" if linsolve.have_pardiso() else "multigrid") and "nodes" in small.reason
+    big = linsolve.choose_method(2_000_000, available_bytes=16 * gb)
+    assert big.method == "multigrid" and "not fit" in big.reason
+    assert linsolve.choose_method(200_000, adaptive=True, available_bytes=16 * gb).method == "multigrid"
+    # memory decides: the same size on a small machine goes iterative
+    assert linsolve.choose_method(150_000, available_bytes=1 * gb).method == "multigrid"
+    assert linsolve.choose_method(150_000, requested="direct").method in ("pardiso", "superlu")
+    assert linsolve.choose_method(150_000, requested="multigrid").method == "multigrid"
+    monkeypatch.setattr(linsolve, "have_pardiso", lambda: False)
+    assert linsolve.choose_method(20_000, available_bytes=16 * gb).method == "multigrid"
+    monkeypatch.setattr(linsolve, "have_pyamg", lambda: False)
+    last = linsolve.choose_method(20_000, available_bytes=16 * gb)
+    assert last.method == "superlu" and "last resort" in last.reason or "SuperLU" in last.reason
+    with pytest.raises(ValueError):
+        linsolve.choose_method(10, requested="magic")
+
+
+@pytest.mark.parametrize("mass", ["lumped", "consistent"])
+def test_stepper_results_agree_across_solvers(mass):
+    p = _problem(mass)
+    fields = {}
+    for method in ("superlu", "pardiso", "multigrid"):
+        if method == "pardiso" and not linsolve.have_pardiso():
+            continue
+        st = Stepper(p, linear_solver=method)
+        assert st.choice.method == method and st.choice.reason
+        fields[method] = np.array([np.array(ev.field) for ev in st])
+    ref = fields.pop("superlu")
+    for method, f in fields.items():
+        assert np.abs(f - ref).max() < 1e-6, method
