@@ -170,7 +170,7 @@ class Stepper:
         return self.problem.step_matrix(dt, theta)
 
     def _solver_for(self, dt: float, theta: float):
-        key = (round(dt, 12), theta)
+        key = (dt, theta)
         s = self._solvers.get(key)
         if s is not None:
             self._solvers.move_to_end(key)
@@ -233,7 +233,7 @@ class Stepper:
             for i, st in enumerate(self.steps, start=1):
                 if self.cancel is not None and self.cancel():
                     raise Cancelled(f"cancelled at t = {st.t0:g} s")
-                th, dt = st.theta, st.dt
+                th, dt = st.theta, canonical_step(st.dt)
                 c0 = loads.coefficients(st.t0, "right")
                 c1 = loads.coefficients(st.t1, "left")
                 f = loads.force(th * c1 + (1.0 - th) * c0)
@@ -256,6 +256,13 @@ class Stepper:
                 yield self._event(i, n_steps, st.t1, dt, d, st.output, q_in, q_out, stored, resid, t_start)
         finally:
             self.close()
+
+
+def canonical_step(dt: float) -> float:
+    """The step rounded to 12 significant digits. Equal intervals split into equal steps give
+    steps that differ in the last bits; rounding makes them one value, so the cached step matrix
+    and the right-hand side always use the same Δt (the time itself still lands exactly)."""
+    return float(f"{dt:.12g}")
 
 
 def run(problem, **kwargs) -> Iterator[StepEvent]:

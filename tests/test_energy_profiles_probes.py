@@ -224,10 +224,6 @@ def test_probe_outside_the_solid_is_refused():
     assert err.value.first_path == "probes[1].at_mm"
 
 
-@pytest.mark.xfail(strict=True, reason="stepping.Stepper._solver_for keys cached step matrices on round(dt, 12) "
-                   "and reuses one built for a step that differs by ~1e-15 s; with sub-millisecond steps the "
-                   "update is then not exactly the θ-scheme: relative energy residual 2.8e-9 here, 6.9e-13 "
-                   "with exact-dt keys")
 def test_energy_balance_with_sub_millisecond_steps():
     """Forward Euler on a 1 mm copper cube (critical step ~8e-5 s), outputs every 0.07 s so the
     equal steps of different intervals differ in the last bits: the balance must still close."""
