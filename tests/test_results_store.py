@@ -14,6 +14,7 @@ from solver.errors import ModelError
 from solver.model import parse_model, save_model
 from solver.runfolder import load_run
 from solver.session import RunSession
+from thermgui.runresults.autocut import hottest_spot, on_outer_box, revealing_cut_z
 from thermgui.runresults.messages import describe_error, item_for_path
 from thermgui.runresults.runpanel import remaining_seconds
 from thermgui.runresults.store import ResultsStore, peaks_tsv, results_folder_for
@@ -176,3 +177,60 @@ def test_engine_refusal_is_a_model_error_naming_the_step():
         RunSession(model, None)
     assert err.value.first_path == "run.step_s"
     assert item_for_path(err.value.first_path) == ("study", 0)
+
+
+# ---------------------------------------------------------------- first cut that shows a hidden hot part
+def box_nodes(x1=120.0, y1=80.0, z1=40.0) -> np.ndarray:
+    """Corner and mid nodes of a closed housing spanning (0..x1, 0..y1, 0..z1) mm."""
+    g = np.array(np.meshgrid([0, x1 / 2, x1], [0, y1 / 2, y1], [0, z1 / 2, z1], indexing="ij"))
+    return g.reshape(3, -1).T
+
+
+def test_hottest_spot_is_the_row_with_the_highest_peak(solved):
+    import csv
+
+    with open(solved["cli"] / "peaks.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    top = max(rows, key=lambda r: float(r["peak_c"]))
+    name, xyz = hottest_spot(solved["live"].peak_rows)
+    assert name == top["part"] == "chip"
+    assert xyz == pytest.approx([float(top[f"hotspot_{a}_mm"]) for a in "xyz"])
+    # unusable rows (empty part: no peak, no hot spot) are skipped, not fatal
+    assert hottest_spot([["empty", "", "", "", "", "", "", "", "", "ok"]]) is None
+    assert hottest_spot(None) is None
+
+
+def test_hot_spot_on_the_outside_needs_no_cut(solved):
+    live = solved["live"]
+    name, xyz = hottest_spot(live.peak_rows)
+    # the chip sits on top of the plate: its hottest node is on the model's top face, visible as is
+    assert xyz[2] == pytest.approx(live.points_mm[:, 2].max())
+    assert on_outer_box(xyz, live.points_mm)
+    assert revealing_cut_z(xyz, live.points_mm, live.part_bounds_mm[name]) is None
+
+
+def test_hidden_hot_spot_gets_a_cut_just_above_its_part():
+    nodes = box_nodes()
+    module = (25.0, 47.0, 25.0, 41.0, 11.6, 14.0)  # a part inside the housing, top at 14 mm
+    spot = (36.0, 33.0, 14.0)
+    assert not on_outer_box(spot, nodes)
+    fraction, z = revealing_cut_z(spot, nodes, module, margin_mm=1.0)
+    # plane wanted at 14 + 1 = 15 mm of 40 mm = 37.5 %, rounded up to the slider's whole per cent
+    assert fraction == pytest.approx(0.38)
+    assert z == pytest.approx(15.2)
+    assert z > module[5]
+    # without the part's bounds the plane goes just above the point itself
+    assert revealing_cut_z((36.0, 33.0, 8.0), nodes, margin_mm=1.0)[0] == pytest.approx(0.23)
+    # a hidden point in a part reaching the model's top: the plane goes through the point
+    fraction, z = revealing_cut_z((60.0, 40.0, 20.0), nodes, (50, 70, 30, 50, 10, 40), margin_mm=1.0)
+    assert fraction == pytest.approx(0.5) and z == pytest.approx(20.0)
+    # never below the slider's smallest share
+    assert revealing_cut_z((60.0, 40.0, 0.2), nodes, margin_mm=0.0, min_fraction=0.05)[0] == pytest.approx(0.05)
+
+
+def test_points_on_any_face_of_the_box_are_outside():
+    nodes = box_nodes()
+    for p in [(0, 40, 20), (120, 40, 20), (60, 0, 20), (60, 80, 20), (60, 40, 0), (60, 40, 40)]:
+        assert on_outer_box(p, nodes), p
+        assert revealing_cut_z(p, nodes) is None
+    assert not on_outer_box((60, 40, 20), nodes)

@@ -272,3 +272,46 @@ def test_stop_cancels_between_steps(qtbot, tmp_path, open_main_window):
     assert res.view.surface is surface
     res.timeline.set_index(1)
     assert np.array_equal(res.view.shown_scalars(), res.store.frame(1)[res.view.point_ids])
+
+
+def test_first_picture_cuts_a_closed_housing_to_show_the_hottest_part(qtbot, tmp_path, open_main_window):
+    """The default sample is a sealed housing: after a run the view is cut across z just above the
+    hottest part (its hot spot lies inside the model), unless the user has chosen a cut."""
+    model = json.loads((ROOT / "samples" / "outdoor_radio_box.json").read_text())
+    model["run"].update(duration_s=60.0, output_every_s=15.0)  # a short run is enough for the picture
+    win, path = make_window(open_main_window, model, tmp_path)
+    res = win.results
+    assert res.cut_choice.currentText() == "Whole model"
+    assert res.start_run()
+    run_to_end(qtbot, win, timeout=180000)
+    store = res.store
+    assert store.complete
+    rows = {r[0]: r for r in store.peak_rows}
+    hottest = max(rows, key=lambda n: float(rows[n][2]))
+    spot = np.array([float(v) for v in rows[hottest][6:9]])
+    top = store.part_bounds_mm[hottest][5]
+    z_all = store.points_mm[:, 2]
+    assert z_all.min() < spot[2] < z_all.max()  # inside: hidden by the lid when seen whole
+    assert res.cut_choice.currentText() == "Cut across z" and res.cut_slider.isEnabled()
+    plane = z_all.min() + res.cut_slider.value() / 100 * (z_all.max() - z_all.min())
+    assert top < plane <= top + 2.0  # just above the hot part
+    text = res.status.detail.text()
+    assert f"view cut at z = {plane:.1f} mm" in text and hottest in text and "Whole model" in text
+    # the hot-spot node is drawn, the lid is not, and the drawn colours are still the stored frame
+    node = int(np.argmin(np.linalg.norm(store.points_mm - spot, axis=1)))
+    assert node in set(res.view.point_ids.tolist())
+    assert store.points_mm[res.view.point_ids, 2].max() < z_all.max()
+    i = res.timeline.index
+    assert np.array_equal(res.view.shown_scalars(), store.frame(i)[res.view.point_ids])
+    shot(win, "results-default-sample-first.png")
+
+    # the user's choice stands: Whole model stays when the results are opened again
+    res.cut_choice.setCurrentIndex(0)
+    assert store.points_mm[res.view.point_ids, 2].max() == pytest.approx(z_all.max())
+    assert win.open_results(results_folder_for(path)) is not None
+    assert res.cut_choice.currentText() == "Whole model"
+    assert "view cut" not in res.status.detail.text()
+    # a new window on the same model opens the results beside it with the revealing cut
+    win2 = open_main_window(path)
+    assert win2.results.store is not None and win2.results.cut_choice.currentText() == "Cut across z"
+    assert "view cut at z =" in win2.results.status.detail.text()

@@ -19,6 +19,7 @@ from PySide6.QtWidgets import (QCheckBox, QComboBox, QFileDialog, QHBoxLayout, Q
 from solver.errors import ModelError
 from solver.runfolder import is_run_folder, load_run
 
+from .autocut import hottest_spot, revealing_cut_z
 from .chart import PartChart
 from .fieldview import FieldView, build_display
 from .messages import describe_error, item_for_path
@@ -48,6 +49,8 @@ class ResultsController(QObject):
         self._new_outputs = False
         self._marked: set = set()
         self._chart_parts: list[str] | None = None  # None: default choice
+        self._user_cut = False  # the user has chosen a cut (or Whole model) in "Look inside"
+        self._auto_cutting = False
         self.view = FieldView(window.viewport.plotter)
         self._build_widgets()
         self._build_actions()
@@ -293,7 +296,8 @@ class ResultsController(QObject):
         self.export_action.setEnabled(True)
         over = s.ever_over()
         note = f"; over rating: {', '.join(sorted(over))}" if over else "; no part over its rating"
-        self.status.finished(f"Finished: {s.n_frames} outputs, kept in {s.folder.name}{note}")
+        self.status.finished(f"Finished: {s.n_frames} outputs, kept in {s.folder.name}{note}"
+                             + self._auto_cut())
         self.status.detail.setToolTip(str(s.folder))
         self.show_index(self.timeline.index)
 
@@ -347,7 +351,8 @@ class ResultsController(QObject):
         self.table.set_rows(store.peak_rows)
         self.export_action.setEnabled(True)
         self.status.started(f"Results of {Path(folder).name}", store.duration_s)
-        self.status.finished(f"Opened {store.n_frames} outputs from {Path(folder).name} (not solved again)")
+        self.status.finished(f"Opened {store.n_frames} outputs from {Path(folder).name} (not solved again)"
+                             + self._auto_cut())
         self.status.detail.setToolTip(str(folder))
         self.timeline.blockSignals(True)
         self.timeline.set_times(store.times, store.duration_s)
@@ -447,7 +452,40 @@ class ResultsController(QObject):
         if self.store is not None and self.store.n_frames:
             self.timeline.set_index(self.store.index_at(time_s))
 
+    def _auto_cut(self) -> str:
+        """Cut across z just above the hottest part when its hot spot is hidden inside the model and
+        the user has not chosen a cut; returns the sentence for the status text ('' when no cut)."""
+        s = self.store
+        if s is None or self._user_cut or self.cut_choice.currentIndex() != 0:
+            return ""
+        hot = hottest_spot(s.peak_rows)
+        if hot is None:
+            return ""
+        name, xyz = hot
+        cut = revealing_cut_z(xyz, s.points_mm, s.part_bounds_mm.get(name),
+                              min_fraction=self.cut_slider.minimum() / 100)
+        if cut is None:
+            return ""
+        fraction, z_mm = cut
+        self._auto_cutting = True
+        try:
+            for w in (self.cut_choice, self.cut_slider):
+                w.blockSignals(True)
+            self.cut_choice.setCurrentIndex([a for _, a in CUT_CHOICES].index("z"))
+            self.cut_slider.setValue(int(round(fraction * 100)))
+        finally:
+            for w in (self.cut_choice, self.cut_slider):
+                w.blockSignals(False)
+        try:
+            self._on_cut()
+        finally:
+            self._auto_cutting = False
+        return (f"; view cut at z = {z_mm:.1f} mm to show the hottest part ({name}); "
+                "choose Whole model to see the outside")
+
     def _on_cut(self, *_):
+        if not self._auto_cutting:
+            self._user_cut = True
         axis = CUT_CHOICES[self.cut_choice.currentIndex()][1]
         self.cut_slider.setEnabled(axis is not None)
         self.view.set_cut(axis, self.cut_slider.value() / 100.0)
