@@ -220,6 +220,10 @@ def run_adaptive(stepper) -> Iterator:
                 ratio = (t1 - anchor) / proposal
                 if abs(ratio - round(ratio)) > 1e-6:
                     proposal = plan.snap(h_try)
+            if not landing and factor >= 1.0 and proposal < h_try:
+                # an off-ladder step (multigrid's first half of a landing pair) keeps its size so the
+                # second half lands; snapping it down instead halves the gap again and again (Zeno)
+                proposal = h_try
             h = max(proposal, h) if (landing and h_try < h and factor >= 1.0) else proposal
             t = t1
             d = u_1
