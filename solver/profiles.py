@@ -7,6 +7,7 @@ at the step start).
 from __future__ import annotations
 
 import math
+from abc import ABC, abstractmethod
 from dataclasses import dataclass
 
 import numpy as np
@@ -20,14 +21,16 @@ class Breakpoint:
     jump: bool
 
 
-class ProfileFunction:
+class ProfileFunction(ABC):
     """Base class; subclasses implement :meth:`value` and :meth:`breakpoints`."""
 
-    def value(self, t: float, side: str = "right") -> float:  # pragma: no cover - interface
-        raise NotImplementedError
+    @abstractmethod
+    def value(self, t: float, side: str = "right") -> float:
+        """Value at ``t`` (s); ``side="left"`` gives the limit from before ``t`` at a jump."""
 
-    def breakpoints(self, t_end: float) -> list[Breakpoint]:  # pragma: no cover - interface
-        raise NotImplementedError
+    @abstractmethod
+    def breakpoints(self, t_end: float) -> list[Breakpoint]:
+        """Times in (0, t_end) where the profile jumps or changes slope."""
 
     def sample(self, times) -> np.ndarray:
         """Values at an array of times (right-continuous), for plots and tables."""

@@ -77,8 +77,8 @@ class ItemForm(QWidget):
         self.doc.try_edit(edits.rename_item(d, self.kind, self.index, new),
                           f"Rename {self.kind_word()} '{old}' to '{new}'", self.panel.report, sel, sel)
 
-    def load(self) -> None:  # pragma: no cover - interface
-        raise NotImplementedError
+    def load(self) -> None:
+        """Fill the fields from the document's model; every concrete form overrides this."""
 
 
 class PartForm(ItemForm):
