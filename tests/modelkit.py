@@ -135,3 +135,25 @@ def dense_pencil(problem):
     """(K, M) as dense arrays."""
     m = problem.mass_matrix
     return problem.stiffness.toarray(), (m.toarray() if sp.issparse(m) else np.asarray(m))
+
+
+def chip_on_plate(**run) -> dict:
+    """Invented scenario: a 1.5 W package on an aluminium plate cooled from below, rated 40 °C (it goes over)."""
+    r = {"duration_s": 60.0, "step_s": 2.0, "scheme": "backward-euler", "mass": "lumped", "output_every_s": 10.0}
+    r.update(run)
+    return {
+        "format": "thermgui-model", "version": 1, "title": "chip on plate (test scenario)",
+        "ambient_c": 25.0, "initial_c": 25.0,
+        "parts": [
+            {"name": "plate", "material": "aluminium-6061", "origin_mm": [0, 0, 0], "size_mm": [40, 30, 3],
+             "rated_c": 100.0},
+            {"name": "chip", "material": "mould-compound", "origin_mm": [15, 10, 3], "size_mm": [10, 10, 2],
+             "rated_c": 40.0},
+            {"name": "foot", "material": "aluminium-6061", "origin_mm": [0, 0, -4], "size_mm": [6, 6, 4]},
+        ],
+        "heat_loads": [{"part": "chip", "profile": {"type": "constant", "value": 1.5}}],
+        "convection": [{"name": "underside", "part": "plate", "side": "z-", "h": 10.0},
+                       {"name": "top", "part": "plate", "side": "z+", "h": 6.0}],
+        "mesh": {"cell_mm": 3.0, "min_layers": 2},
+        "run": r,
+    }

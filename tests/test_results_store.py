@@ -19,28 +19,9 @@ from thermgui.runresults.messages import describe_error, item_for_path
 from thermgui.runresults.runpanel import remaining_seconds
 from thermgui.runresults.store import ResultsStore, peaks_tsv, results_folder_for
 from thermgui.runresults.timefmt import format_duration, format_time, time_unit
+from modelkit import chip_on_plate
 
 
-def chip_on_plate(**run) -> dict:
-    """Invented scenario: a 1.5 W package on an aluminium plate cooled from below, rated 40 °C."""
-    r = {"duration_s": 60.0, "step_s": 2.0, "scheme": "backward-euler", "mass": "lumped", "output_every_s": 10.0}
-    r.update(run)
-    return {
-        "format": "thermgui-model", "version": 1, "title": "chip on plate (test scenario)",
-        "ambient_c": 25.0, "initial_c": 25.0,
-        "parts": [
-            {"name": "plate", "material": "aluminium-6061", "origin_mm": [0, 0, 0], "size_mm": [40, 30, 3],
-             "rated_c": 100.0},
-            {"name": "chip", "material": "mould-compound", "origin_mm": [15, 10, 3], "size_mm": [10, 10, 2],
-             "rated_c": 40.0},
-            {"name": "foot", "material": "aluminium-6061", "origin_mm": [0, 0, -4], "size_mm": [6, 6, 4]},
-        ],
-        "heat_loads": [{"part": "chip", "profile": {"type": "constant", "value": 1.5}}],
-        "convection": [{"name": "underside", "part": "plate", "side": "z-", "h": 10.0},
-                       {"name": "top", "part": "plate", "side": "z+", "h": 6.0}],
-        "mesh": {"cell_mm": 3.0, "min_layers": 2},
-        "run": r,
-    }
 
 
 @pytest.fixture(scope="module")

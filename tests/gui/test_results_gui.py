@@ -19,6 +19,7 @@ from PySide6.QtGui import QGuiApplication  # noqa: E402
 from solver.cli import solve_to_folder  # noqa: E402
 from solver.model import parse_model, save_model  # noqa: E402
 from thermgui.runresults import results_folder_for  # noqa: E402
+from modelkit import chip_on_plate
 
 ROOT = Path(__file__).resolve().parents[2]
 ARTIFACTS = ROOT / "tests" / "_artifacts"
@@ -26,26 +27,6 @@ pv.global_theme.multi_samples = 0
 pytestmark = pytest.mark.gui
 
 
-def chip_on_plate(**run) -> dict:
-    """Invented scenario: a 1.5 W package on an aluminium plate, rated 40 °C (it goes over)."""
-    r = {"duration_s": 60.0, "step_s": 2.0, "scheme": "backward-euler", "mass": "lumped", "output_every_s": 10.0}
-    r.update(run)
-    return {
-        "format": "thermgui-model", "version": 1, "title": "chip on plate (test scenario)",
-        "ambient_c": 25.0, "initial_c": 25.0,
-        "parts": [
-            {"name": "plate", "material": "aluminium-6061", "origin_mm": [0, 0, 0], "size_mm": [40, 30, 3],
-             "rated_c": 100.0},
-            {"name": "chip", "material": "mould-compound", "origin_mm": [15, 10, 3], "size_mm": [10, 10, 2],
-             "rated_c": 40.0},
-            {"name": "foot", "material": "aluminium-6061", "origin_mm": [0, 0, -4], "size_mm": [6, 6, 4]},
-        ],
-        "heat_loads": [{"part": "chip", "profile": {"type": "constant", "value": 1.5}}],
-        "convection": [{"name": "underside", "part": "plate", "side": "z-", "h": 10.0},
-                       {"name": "top", "part": "plate", "side": "z+", "h": 6.0}],
-        "mesh": {"cell_mm": 3.0, "min_layers": 2},
-        "run": r,
-    }
 
 
 def make_window(open_main_window, model_dict, folder: Path):
