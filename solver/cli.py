@@ -57,14 +57,14 @@ class ProgressBar:
 
 
 def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str = "auto",
-                    stream=None, err=None) -> int:
+                    stream=None, err=None, method: str | None = None) -> int:
     """Run a model file and write results; returns the exit status (streams default to stdout/stderr)."""
     stream = stream if stream is not None else sys.stdout
     err = err if err is not None else sys.stderr
     t0 = time.perf_counter()
     try:
         model = load_model(model_path)
-        session = RunSession(model, out_dir, linear_solver=linear_solver)
+        session = RunSession(model, out_dir, linear_solver=linear_solver, method=method)
     except ModelError as e:
         err.write(e.with_source(e.source or str(model_path)).describe() + "\n")
         return 2
@@ -90,6 +90,8 @@ def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str
     rows = session.finish()
     if not quiet:
         stream.write(format_summary(rows) + "\n")
+        if session.stepper.reduced_info is not None and session.stepper.method == "reduced":
+            stream.write(session.stepper.reduced_info.describe() + "\n")
         stream.write(f"energy balance: largest step residual {session.recorder.relative_energy_residual:.1e} of "
                      f"the largest heat flow; results in {out_dir} ({time.perf_counter() - t0:.1f} s)\n")
         stream.write(CAUTION + "\n")
@@ -115,10 +117,12 @@ def add_solve_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--quiet", action="store_true", help="no progress bar or summary")
     p.add_argument("--linear-solver", default="auto", choices=["auto", "direct", "multigrid"],
                    help="linear solver for implicit steps (default: chosen by size)")
+    p.add_argument("--method", choices=["full", "reduced"], default=None,
+                   help="override run.method: step the full system, or a reduced basis within run.tolerance_k")
 
 
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(prog="python -m solver", description="Solve an enclosure model headless.")
     add_solve_arguments(parser)
     args = parser.parse_args(argv)
-    return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver)
+    return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver, method=args.method)

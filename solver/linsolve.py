@@ -44,7 +44,28 @@ def estimated_factor_bytes(n: int) -> float:
     return FACTOR_BYTES_AT_1M * (n / 1e6) ** (4.0 / 3.0)
 
 
+def _point_pypardiso_at_mkl() -> None:
+    """pypardiso walks the whole installation tree for MKL's runtime library on import and on every
+    solver construction (over a second here) unless PYPARDISO_MKL_RT names it, which is its
+    documented override. The MKL wheel puts the library in ``<prefix>/lib`` (Linux, macOS) or
+    ``<prefix>/Library/bin`` (Windows): look there first, leave the full search to pypardiso."""
+    import glob
+    import os
+    import site
+    import sys
+
+    if "PYPARDISO_MKL_RT" in os.environ:
+        return
+    for base in (sys.prefix, site.USER_BASE or ""):
+        for pattern in ("lib/libmkl_rt.so*", "lib/libmkl_rt*.dylib", "Library/bin/mkl_rt*.dll"):
+            hits = sorted(glob.glob(os.path.join(base, pattern)), key=len)
+            if hits:
+                os.environ["PYPARDISO_MKL_RT"] = hits[0]
+                return
+
+
 def have_pardiso() -> bool:
+    _point_pypardiso_at_mkl()
     try:
         import pypardiso  # noqa: F401
     except Exception:  # ImportError, or MKL's runtime library not found
@@ -162,6 +183,7 @@ class PardisoCholesky:
     name = "direct (PARDISO sparse Cholesky)"
 
     def __init__(self, a: sp.csr_matrix, upper=None):
+        _point_pypardiso_at_mkl()
         import pypardiso
 
         if upper is not None:
@@ -180,9 +202,12 @@ class PardisoCholesky:
         self.iterations = 0
 
     def solve(self, b, x0=None):
+        """x for one right-hand side (N,) or several (N, k) at once."""
         self.ps.set_phase(33)
-        x = self.ps._call_pardiso(self.u, np.ascontiguousarray(b, dtype=float))
-        return x
+        b = np.asarray(b, dtype=float)
+        # PARDISO reads several right-hand sides column after column (Fortran order)
+        b = np.ascontiguousarray(b) if b.ndim == 1 else np.asfortranarray(b)
+        return self.ps._call_pardiso(self.u, b)
 
     def factor_bytes(self) -> int:
         """Memory PARDISO reports for the factor (permanent + factorization), bytes."""

@@ -24,11 +24,11 @@ class RunSession:
     """Prepare, step and record one run. ``out_dir=None`` keeps fields in memory only."""
 
     def __init__(self, model, out_dir=None, cancel: Callable[[], bool] | None = None,
-                 linear_solver: str = "auto", keep_fields: bool | None = None):
+                 linear_solver: str = "auto", keep_fields: bool | None = None, method: str | None = None):
         self.t_start = time.perf_counter()
         self.model = model
         self.problem = build_problem(model)
-        self.stepper = Stepper(self.problem, cancel=cancel, linear_solver=linear_solver)
+        self.stepper = Stepper(self.problem, cancel=cancel, linear_solver=linear_solver, method=method)
         self.out_dir = Path(out_dir) if out_dir is not None else None
         self._series = None
         self.recorder = None
@@ -45,7 +45,8 @@ class RunSession:
 
     def describe(self) -> str:
         p, s = self.problem, self.stepper
-        return (f"{p.n_nodes:,} nodes, {p.mesh.n_tets:,} tetrahedra, {s.n_steps:,} steps ({s.scheme}); "
+        steps = (f"{len(s.outputs):,} output times" if s.method == "reduced" else f"{s.n_steps:,} steps")
+        return (f"{p.n_nodes:,} nodes, {p.mesh.n_tets:,} tetrahedra, {steps} ({s.scheme}); "
                 f"linear solver: {s.choice.method} ({s.choice.reason})")
 
     def events(self) -> Iterator[StepEvent]:

@@ -120,10 +120,15 @@ class Stepper:
     """
 
     def __init__(self, problem, cancel: Callable[[], bool] | None = None, linear_solver: str = "auto",
-                 damp_after_jumps: bool = True, tolerance_k: float | None = None):
+                 damp_after_jumps: bool = True, tolerance_k: float | None = None, method: str | None = None):
         self.problem = problem
         run = problem.model.run
         self.cancel = cancel
+        self.method = method or getattr(run, "method", None) or "full"
+        if self.method not in ("full", "reduced"):
+            raise ValueError(f"unknown method {self.method!r}")
+        self.reduced_info = None
+        self.reduced_shifts = None  # shifts (1/s) for a reduced run; None = chosen from the run
         self.tolerance_k = tolerance_k if tolerance_k is not None else getattr(run, "tolerance_k", None)
         self.adaptive = self.tolerance_k is not None
         self.outputs = output_times(float(run.duration_s), run.output_interval_s)
@@ -146,19 +151,37 @@ class Stepper:
             self.steps = plan_steps(float(run.duration_s), float(run.step_s), self.theta,
                                     problem.breakpoints(float(run.duration_s)), self.outputs, damp_after_jumps)
             self._n_steps_estimate = len(self.steps)
-        if not self.adaptive and self.theta < 0.5:
-            if problem.capacity is not None:
-                raise ModelError(("run.mass", "forward Euler needs lumped capacity"))
-            self.critical_step_s = critical_step(problem)
-            dt_max = max(s.dt for s in self.steps)
-            if dt_max > self.critical_step_s:
-                raise ModelError(("run.step_s",
-                                  f"forward Euler is unstable with steps of {dt_max:.4g} s on this mesh: the "
-                                  f"critical step is {self.critical_step_s:.4g} s (2/λ_max, λ_max = "
-                                  f"{2.0 / self.critical_step_s:.4g} 1/s). Use a step of at most "
-                                  f"{self.critical_step_s:.4g} s, or backward Euler / Crank–Nicolson"))
-        self.choice = choose_method(problem.n_nodes, linear_solver, adaptive=self.adaptive)
+        if self.method == "reduced":
+            self._full_plan = (self.scheme, self._n_steps_estimate)
+            self.scheme = "reduced basis (exact in time)"
+            self._n_steps_estimate = len(self.outputs) - 1
+        else:
+            self._check_explicit_stability()
+        self.choice = choose_method(problem.n_nodes, linear_solver,
+                                    adaptive=self.adaptive and self.method == "full")
         self._mass_cache: dict = {}
+
+    def _check_explicit_stability(self) -> None:
+        """Refuse forward Euler above its critical step (ModelError naming run.step_s)."""
+        problem = self.problem
+        if self.adaptive or self.theta >= 0.5:
+            return
+        if problem.capacity is not None:
+            raise ModelError(("run.mass", "forward Euler needs lumped capacity"))
+        self.critical_step_s = critical_step(problem)
+        dt_max = max(s.dt for s in self.steps)
+        if dt_max > self.critical_step_s:
+            raise ModelError(("run.step_s",
+                              f"forward Euler is unstable with steps of {dt_max:.4g} s on this mesh: the "
+                              f"critical step is {self.critical_step_s:.4g} s (2/λ_max, λ_max = "
+                              f"{2.0 / self.critical_step_s:.4g} 1/s). Use a step of at most "
+                              f"{self.critical_step_s:.4g} s, or backward Euler / Crank–Nicolson"))
+
+    def fall_back_to_full(self) -> None:
+        """Switch a reduced run to stepping the full system (when the basis does not converge)."""
+        self.method = "full"
+        self.scheme, self._n_steps_estimate = self._full_plan
+        self._check_explicit_stability()
 
     @property
     def n_steps(self) -> int:
@@ -210,6 +233,14 @@ class Stepper:
                          p.probes @ d, is_output, q_in, q_out, stored, resid, _time.perf_counter() - t_start)
 
     def __iter__(self) -> Iterator[StepEvent]:
+        if self.method == "reduced":
+            from .reduced import run_reduced
+
+            return run_reduced(self)
+        return self._run_full()
+
+    def _run_full(self) -> Iterator[StepEvent]:
+        """Step the full system (also the fallback of a reduced run that does not converge)."""
         if self.adaptive:
             from .adaptive import run_adaptive
 

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import csv
+import dataclasses
 import json
 from pathlib import Path
 
@@ -65,9 +66,12 @@ def write_run_info(path, problem, recorder: RunRecorder, stepper, wall_s: float)
         "model": problem.model.to_json_dict(),
         "mesh": {"nodes": int(problem.n_nodes), "tetrahedra": int(problem.mesh.n_tets),
                  "planes": [len(l) for l in problem.mesh.lines]},
-        "solver": {"scheme": stepper.scheme, "theta": stepper.theta, "steps": stepper.n_steps,
+        "solver": {"method": stepper.method, "scheme": stepper.scheme,
+                   "theta": stepper.theta if stepper.method == "full" else None, "steps": stepper.n_steps,
                    "factorizations": stepper.factorizations, "linear_solver": stepper.choice.method,
-                   "linear_solver_reason": stepper.choice.reason, "critical_step_s": stepper.critical_step_s},
+                   "linear_solver_reason": stepper.choice.reason, "critical_step_s": stepper.critical_step_s,
+                   "reduced": (dataclasses.asdict(stepper.reduced_info)
+                               if getattr(stepper, "reduced_info", None) is not None else None)},
         "energy": dict(recorder.energy, relative_residual=recorder.relative_energy_residual),
         "warnings": list(problem.warnings),
         "units": {"length": "mm", "temperature": "degC", "time": "s"},

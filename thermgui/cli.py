@@ -38,7 +38,7 @@ def main(argv=None) -> int:
     args = build_parser().parse_args(argv)
     if args.command == "solve":
         try:
-            return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver)
+            return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver, method=args.method)
         except KeyboardInterrupt:
             sys.stderr.write("interrupted\n")
             return 1
