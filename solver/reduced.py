@@ -47,6 +47,8 @@ class ReducedInfo:
     tolerance_k: float = DEFAULT_TOLERANCE_K
     samples: int = 0
     converged: bool = False
+    factor_s: float = 0.0  # wall time of the factorization(s)
+    basis_s: float = 0.0  # wall time from the start of the run to an accepted basis
     history: list = field(default_factory=list)  # (basis size, error estimate K) at each check
 
     def describe(self) -> str:
@@ -182,12 +184,15 @@ def run_reduced(stepper) -> Iterator:
     info.shift_per_s = shifts[0]
     method = stepper.choice.method
     max_columns = int(min(MAX_COLUMNS, MAX_BASIS_BYTES // (8 * p.n_nodes)))
+    t_factor = _time.perf_counter()
     basis = KrylovBasis(p, shifts, method=method, cancel=stepper.cancel, max_columns=max_columns)
     stepper.factorizations += len(shifts)
+    info.factor_s = _time.perf_counter() - t_factor
     try:
         proj = ProjectedRun(p, basis, grid)
         coarse = grid.coarse_index()
         nodes = None  # each part's hottest nodes; found once, refreshed before accepting
+        prev_q = None  # the previous check's solution (the next check's smaller basis)
         result = None
         for block in range(1, MAX_BLOCKS + 1):
             added = basis.grow()
@@ -203,7 +208,7 @@ def run_reduced(stepper) -> Iterator:
             if exhausted:
                 info.error_estimate_k, info.converged = 0.0, True
             else:
-                q_small = proj.solve(r_small)[1]
+                q_small = prev_q if prev_q is not None and prev_q.shape[0] == r_small else proj.solve(r_small)[1]
                 info.error_estimate_k = estimate_error(basis.V, q, q_small, nodes)
                 info.history.append((r, info.error_estimate_k))
                 if info.error_estimate_k <= tol:  # confirm on this basis' hottest nodes and everywhere
@@ -211,9 +216,11 @@ def run_reduced(stepper) -> Iterator:
                     info.error_estimate_k = estimate_error(basis.V, q, q_small, nodes, coarse)
                     info.converged = info.error_estimate_k <= tol
             result = (r, modal, q, qint, nodes)
+            prev_q = q
             if info.converged or basis.full:
                 break
         stepper.solves = basis.solves
+        info.basis_s = _time.perf_counter() - t_start
     finally:
         basis.close()
     info.basis_size, info.blocks = basis.size, len(basis.block_sizes) - 1

@@ -253,6 +253,19 @@ def test_study_settings_form(main_window):
     type_into(f.numbers[("run", "step_s")].edit, "1000")
     assert "run.step_s" in w.prompts.errors()[-1]
     assert w.document.model.run.step_s == step
+    # the solution method and its tolerance, undoable like every edit
+    f.method.setCurrentIndex(f.method.findData("reduced"))
+    f.method.activated.emit(f.method.currentIndex())
+    assert w.document.model.run.method == "reduced"
+    type_into(f.numbers[("run", "tolerance_k")].edit, "0.05")
+    assert w.document.model.run.tolerance_k == 0.05
+    type_into(f.numbers[("run", "tolerance_k")].edit, "-1")
+    assert "tolerance" in w.prompts.errors()[-1].lower()
+    assert w.document.model.run.tolerance_k == 0.05
+    w.actions_["undo"].trigger()
+    w.actions_["undo"].trigger()
+    assert w.document.model.run.method in (None, "full") and w.document.model.run.tolerance_k is None
+    assert f.method.currentData() == "full"
 
 
 def test_marks_in_tree_and_view(main_window):

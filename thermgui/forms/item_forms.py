@@ -259,6 +259,7 @@ class StudyForm(ItemForm):
     kind = "study"
     SCHEME_LABELS = {"backward-euler": "backward Euler (robust)", "crank-nicolson": "Crank–Nicolson (accurate)",
                      "forward-euler": "forward Euler (explicit)"}
+    METHOD_LABELS = {"full": "time steps on the full model", "reduced": "reduced basis (fast)"}
 
     def __init__(self, panel):
         super().__init__(panel)
@@ -272,8 +273,10 @@ class StudyForm(ItemForm):
                 (("mesh", "cell_mm"), "Cell size", "mm", False), (("mesh", "min_layers"), "Cells across thinnest",
                                                                   "cells", False),
                 (("run", "duration_s"), "Duration", "s", False), (("run", "step_s"), "Time step", "s", False),
-                (("run", "output_every_s"), "Save every", "s", True)]:
-            f = NumberField(unit, optional=optional, placeholder="about 100 outputs" if optional else "")
+                (("run", "output_every_s"), "Save every", "s", True),
+                (("run", "tolerance_k"), "Tolerance", "K", True)]:
+            hint = {"output_every_s": "about 100 outputs", "tolerance_k": "fixed steps"}.get(path[-1], "")
+            f = NumberField(unit, optional=optional, placeholder=hint)
             f.committed.connect(lambda v, p=path, lab=label: self.commit(p, self._typed(p, v), lab.lower()))
             f.rejected.connect(lambda t, lab=label: self.reject_text(lab.lower(), t))
             L.addRow(label, f)
@@ -287,8 +290,17 @@ class StudyForm(ItemForm):
         for m in MASS_KINDS:
             self.mass.addItem(m, m)
         self.mass.activated.connect(lambda i: self.commit(("run", "mass"), self.mass.itemData(i), "capacity"))
+        self.method = QComboBox()
+        for m, text in self.METHOD_LABELS.items():
+            self.method.addItem(text, m)
+        self.method.setToolTip("Reduced basis: one factorization and a few dozen solves, integrated exactly; "
+                               "its error is kept within the tolerance (0.1 K if empty). Fastest for long "
+                               "profiles with many load changes.")
+        self.method.activated.connect(lambda i: self.commit(("run", "method"), self.method.itemData(i),
+                                                            "solution method"))
         L.addRow("Time scheme", self.scheme)
         L.addRow("Heat capacity", self.mass)
+        L.addRow("Solve by", self.method)
 
     @staticmethod
     def _typed(path, v):
@@ -310,6 +322,7 @@ class StudyForm(ItemForm):
             f.set_value(node)
         self.scheme.setCurrentIndex(self.scheme.findData(d["run"]["scheme"]))
         self.mass.setCurrentIndex(self.mass.findData(d["run"]["mass"]))
+        self.method.setCurrentIndex(self.method.findData(d["run"].get("method") or "full"))
 
     def commit(self, path, value, label):
         d = self.doc.model_dict()
