@@ -122,11 +122,15 @@ class ProjectedRun:
 def hottest_nodes(problem, v: np.ndarray, q: np.ndarray, index: np.ndarray) -> np.ndarray:
     """Node ids that are some part's maximum at one of the sample columns ``index`` of ``q``."""
     pn = problem.part_nodes
-    parts = [pn.index[o:o + c] for o, c in zip(pn.offsets, pn.counts) if c > 0]
+    qs = q[:, index]
     found = []
-    for s in range(0, len(index), CHUNK):
-        fields = v @ q[:, index[s:s + CHUNK]]
-        found += [ids[np.argmax(fields[ids], axis=0)] for ids in parts]
+    for o, c in zip(pn.offsets, pn.counts):
+        if c == 0:
+            continue
+        ids = pn.index[o:o + c]
+        vpt = np.ascontiguousarray(v[ids].T)  # this part's rows of the basis, gathered once
+        for s in range(0, qs.shape[1], 4 * CHUNK):  # (samples, nodes): argmax along contiguous rows
+            found.append(ids[np.argmax(qs[:, s:s + 4 * CHUNK].T @ vpt, axis=1)])
     return np.unique(np.concatenate(found)) if found else np.zeros(0, dtype=np.int64)
 
 
