@@ -144,6 +144,20 @@ def watch_slots() -> list:
     return seen
 
 
+def thread_cpu() -> dict:
+    """CPU seconds per thread name of this process (Linux /proc; empty elsewhere)."""
+    out: dict = {}
+    tick = os.sysconf("SC_CLK_TCK") if hasattr(os, "sysconf") else 100
+    for task in Path("/proc/self/task").glob("*") if Path("/proc/self/task").exists() else []:
+        try:
+            name = (task / "comm").read_text().strip()
+            fields = (task / "stat").read_text().rsplit(")", 1)[1].split()
+            out[name] = out.get(name, 0.0) + (int(fields[11]) + int(fields[12])) / tick
+        except (OSError, IndexError, ValueError):
+            continue
+    return out
+
+
 def run_in_app(app, win, turning: bool) -> dict:
     from PySide6.QtCore import QEventLoop, QTimer
 
@@ -163,7 +177,18 @@ def run_in_app(app, win, turning: bool) -> dict:
     renders: list[float] = []
     rw = win.viewport.plotter.render_window
     began = {}
-    obs = [rw.AddObserver("StartEvent", lambda *_: began.update(t=time.perf_counter())),
+    stacks = os.environ.get("GUI_BENCH_STACKS")  # set to 1 to print where each render came from
+
+    def on_start(*_):
+        began.update(t=time.perf_counter())
+        if stacks and "start" in marks:
+            import traceback
+
+            frames = [f"{Path(f.filename).name}:{f.lineno} {f.name}" for f in traceback.extract_stack()[:-1]
+                      if "thermgui" in f.filename or "pyvista" in f.filename]
+            print(f"render at +{began['t'] - marks['start']:.2f} s: " + " <- ".join(reversed(frames[-10:])))
+
+    obs = [rw.AddObserver("StartEvent", on_start),
            rw.AddObserver("EndEvent", lambda *_: renders.append(time.perf_counter() - began["t"]))]
 
     tick.start()
@@ -172,17 +197,33 @@ def run_in_app(app, win, turning: bool) -> dict:
     idle = QEventLoop()
     QTimer.singleShot(2000, idle.quit)
     marks["idle0"] = time.perf_counter()
+    cpu_idle = thread_cpu()
     idle.exec()
+    print("   CPU seconds per thread over 2 s idle: "
+          + str({k: round(v - cpu_idle.get(k, 0.0), 2) for k, v in thread_cpu().items()
+                 if v - cpu_idle.get(k, 0.0) > 0.02}))
     res = win.results
+    if os.environ.get("GUI_BENCH_NO_PROGRESS"):  # experiment: no progress-bar repaints at all
+        res.status.progress = lambda *a: None
+    if os.environ.get("GUI_BENCH_LIVE_DUTY"):  # experiment: another share of time for live redraws
+        import thermgui.runresults.controller as ctl
+
+        ctl.LIVE_DUTY = float(os.environ["GUI_BENCH_LIVE_DUTY"])
+        ctl.LIVE_LONGEST_MS = 60000
     marks["start"] = time.perf_counter()
     res.start_run()
     last = {}
-    res.worker.prepared.connect(lambda *_: marks.setdefault("prepared", time.perf_counter()))
+    cpu0 = {}
+    res.worker.prepared.connect(lambda *_: (marks.setdefault("prepared", time.perf_counter()),
+                                            cpu0.update(thread_cpu())))
     res.worker.progress.connect(lambda step, n, t_s, el: last.update({"elapsed" if step else "first": el}))
     loop = QEventLoop()
     res.worker.done.connect(loop.quit)
     loop.exec()
     marks["end"] = time.perf_counter()
+    cpu1 = thread_cpu()
+    by_thread = {k: round(v - cpu0.get(k, 0.0), 2) for k, v in cpu1.items() if v - cpu0.get(k, 0.0) > 0.05}
+    print(f"   CPU seconds per thread while stepping: {by_thread}")
     n_run, t_run = len(renders), sum(renders)
     for _ in range(20):
         app.processEvents()

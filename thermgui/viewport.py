@@ -362,7 +362,8 @@ class Viewport(QWidget):
         """Look at all parts from ``direction``: "iso", "top", "front" or "side"."""
         {"iso": self.plotter.view_isometric, "top": self.plotter.view_xy, "front": self.plotter.view_xz,
          "side": self.plotter.view_yz}[direction](render=False)
-        self.plotter.reset_camera(render=False)
+        self.plotter.renderer.reset_camera(render=False)  # Plotter.reset_camera would render anyway
+        self.plotter.renderer.camera.is_set = True
         self._fill_view(0.85)
         self.refresh()
 
@@ -387,7 +388,7 @@ class Viewport(QWidget):
             ys.append(y)
         span = max((max(xs) - min(xs)) / max(w, 1), (max(ys) - min(ys)) / max(h, 1))
         if span > 0:
-            self.plotter.camera.zoom(fraction / span)
+            self.plotter.renderer.camera.zoom(fraction / span)
 
     def screen_position(self, point_mm) -> tuple[int, int]:
         """Widget pixel (x from the left, y from the top) where a 3D point (mm) is drawn."""

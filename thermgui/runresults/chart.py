@@ -32,12 +32,13 @@ class PartChart(pg.PlotWidget):
         self.limits: dict[str, pg.InfiniteLine] = {}
         self._unit = ("s", 1.0)
 
-    def show_parts(self, names, times, part_max, part_names, ratings) -> None:
-        """Curves for ``names``: ``times`` (T,) s, ``part_max`` (T, P) °C; ``ratings`` name → °C or None.
+    def show_parts(self, names, times, part_max, part_names, ratings, span_s: float | None = None) -> None:
+        """Curves for ``names``: ``times`` (T,) s, ``part_max`` (T, P) °C; ``ratings`` name → °C or None;
+        ``span_s`` the time axis length (the run's duration, so a streaming run fills it left to right).
 
         The plot items are rebuilt only when the choice of parts or the time unit changes; new
         output times only replace the curves' data (cheap while a run streams in)."""
-        span = float(times[-1]) if len(times) else 0.0
+        span = float(span_s) if span_s else (float(times[-1]) if len(times) else 0.0)
         unit = time_unit(span)
         key = (tuple(names), tuple(ratings.get(n) for n in names), unit)
         if key != getattr(self, "_key", None):
@@ -52,8 +53,8 @@ class PartChart(pg.PlotWidget):
         ys = [float(np.nanmin(shown)), float(np.nanmax(shown))] if np.isfinite(shown).any() else []
         ys += [r for r in (ratings.get(n) for n in names) if r is not None]
         ys = [y for y in ys if np.isfinite(y)]
-        if len(t):
-            self.plotItem.setXRange(0.0, max(float(t[-1]), 1e-9), padding=0.02)
+        if len(t) or span > 0:
+            self.plotItem.setXRange(0.0, max(span / self._unit[1], 1e-9), padding=0.02)
         if ys:  # keep the limit lines and their labels inside the plot
             lo, hi = min(ys), max(ys)
             pad = max(0.5, 0.1 * (hi - lo))

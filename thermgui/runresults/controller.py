@@ -46,6 +46,7 @@ class ResultsController(QObject):
         self.results_shown = False
         self.stale = False
         self._live = None  # (time_s, field) newest preview between outputs
+        self._reveal_pending = False  # a run has started: show the field with its first frame
         self._new_outputs = False
         self._marked: set = set()
         self._chart_parts: list[str] | None = None  # None: default choice
@@ -239,7 +240,9 @@ class ResultsController(QObject):
         self.export_action.setEnabled(False)
         self.timeline.set_times([], self.store.duration_s)
         self.show_action.setEnabled(True)
-        self.set_results_shown(True)
+        # keep the boxes until the first frame arrives: drawing the empty field now would cost the
+        # solver several software-GL frames of a big mesh (measured: most of the live view's cost)
+        self._reveal_pending = True
 
     def _on_output(self, time_s, field, part_max) -> None:
         if self.store is None:
@@ -262,6 +265,9 @@ class ResultsController(QObject):
         s = self.store
         if s is None or not s.n_frames:
             return
+        if self._reveal_pending:  # the first frame of a run: switch the view to the field now
+            self._reveal_pending = False
+            self.set_results_shown(True, paint=False)
         following = self.timeline.index >= s.n_frames - 2 or not self.timeline.isEnabled()
         if self._new_outputs:
             self._new_outputs = False
@@ -364,8 +370,9 @@ class ResultsController(QObject):
         return run
 
     # ------------------------------------------------------------ presenting
-    def set_results_shown(self, on: bool) -> None:
+    def set_results_shown(self, on: bool, paint: bool = True) -> None:
         """Switch the 3D view between the model's boxes and the temperature field."""
+        self._reveal_pending = False
         on = bool(on) and self.store is not None
         self.results_shown = on
         self.show_action.blockSignals(True)
@@ -375,7 +382,7 @@ class ResultsController(QObject):
         vp.set_mode("results" if on else "edit")
         self.view.set_visible(on)
         if on and self.store is not None and self.store.n_frames:
-            self.show_index(self.timeline.index)
+            self._show(self.timeline.index, paint=paint)
         elif not on:
             self._mark(set())
 
@@ -428,7 +435,8 @@ class ResultsController(QObject):
         if not names:
             names = s.rated_parts() or list(s.part_names)
         times, pmax = s.history()
-        self.chart.show_parts(names, times, pmax, s.part_names, {n: s.rating(n) for n in names})
+        self.chart.show_parts(names, times, pmax, s.part_names, {n: s.rating(n) for n in names},
+                              span_s=s.duration_s)
         if s.n_frames:
             self.chart.set_cursor(s.times[min(self.timeline.index, s.n_frames - 1)])
 

@@ -96,7 +96,9 @@ class FieldView:
         if bounds != self._framed_bounds:  # new shape: frame it (keep the user's camera otherwise)
             if self._framed_bounds is None:
                 self.plotter.view_isometric(render=False)
-            self.plotter.reset_camera(render=False, bounds=self.grid.bounds)
+            # the renderer's own reset: pyvista's Plotter.reset_camera renders even with render=False
+            self.plotter.renderer.reset_camera(render=False, bounds=self.grid.bounds)
+            self.plotter.renderer.camera.is_set = True
             self._framed_bounds = bounds
 
     def _same_mesh(self, grid) -> bool:
@@ -124,7 +126,8 @@ class FieldView:
             render=False, pickable=False, reset_camera=False, lighting=True,
             scalar_bar_args={"title": BAR_TITLE, "color": LABEL_COLOUR, "vertical": True,
                              "position_x": 0.87, "position_y": 0.14, "height": 0.62, "width": 0.06,
-                             "title_font_size": 14, "label_font_size": 12, "fmt": "%.1f", "n_labels": 6})
+                             "title_font_size": 14, "label_font_size": 12, "fmt": "%.1f", "n_labels": 6,
+                             "render": False})
         self.actor.SetVisibility(self.visible)
         self.actor.mapper.scalar_range = self._clim
         if self._field is not None:
