@@ -226,6 +226,24 @@ def test_refused_run_gives_message_and_keeps_model(qtbot, tmp_path, open_main_wi
     assert "cannot be opened" in res.status.message.text() and "not a results folder" in res.status.message.text()
 
 
+def test_reduced_basis_run_matches_the_command_line(qtbot, tmp_path, cli_peaks, open_main_window):
+    """The study's "Solve by: reduced basis" gives the same peaks as stepping, within its tolerance,
+    and the run says how it was solved."""
+    win, _ = make_window(open_main_window, chip_on_plate(method="reduced", tolerance_k=0.05), tmp_path)
+    res = win.results
+    assert res.start_run()
+    run_to_end(qtbot, win)
+    assert res.store.complete and win.viewport.mode == "results"
+    assert "reduced basis" in res.status.detail.text()
+    cli = {r["part"]: float(r["peak_c"]) for r in csv.DictReader(open(cli_peaks / "peaks.csv"))}
+    rows = res.store.peak_rows  # peaks.csv rows as text, PEAK_COLUMNS order
+    assert sorted(r[0] for r in rows) == sorted(cli)
+    for row in rows:
+        # the reduced run's tolerance plus room for the stepped run's own time-step error (the
+        # engine tests compare both with a converged reference more tightly)
+        assert abs(float(row[2]) - cli[row[0]]) <= 0.1
+
+
 def test_stop_cancels_between_steps(qtbot, tmp_path, open_main_window):
     win, _ = make_window(open_main_window, chip_on_plate(duration_s=20000.0, step_s=1.0, output_every_s=50.0), tmp_path)
     res = win.results

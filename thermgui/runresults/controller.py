@@ -229,6 +229,7 @@ class ResultsController(QObject):
 
     def _on_prepared(self, session, prepared) -> None:
         self.store, display = prepared
+        self._stepper = session.stepper  # read after the run: how it was solved
         self._results_model = self._pending_model
         self._live = None
         self.stale = False
@@ -302,6 +303,9 @@ class ResultsController(QObject):
         self.export_action.setEnabled(True)
         over = s.ever_over()
         note = f"; over rating: {', '.join(sorted(over))}" if over else "; no part over its rating"
+        st = getattr(self, "_stepper", None)
+        if st is not None and st.method == "reduced" and st.reduced_info is not None:
+            note += f". Solved by a {st.reduced_info.describe()}"
         self.status.finished(f"Finished: {s.n_frames} outputs, kept in {s.folder.name}{note}"
                              + self._auto_cut())
         self.status.detail.setToolTip(str(s.folder))
