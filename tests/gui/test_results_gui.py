@@ -248,9 +248,9 @@ def test_stop_cancels_between_steps(qtbot, tmp_path, open_main_window):
     win, _ = make_window(open_main_window, chip_on_plate(duration_s=20000.0, step_s=1.0, output_every_s=50.0), tmp_path)
     res = win.results
     res.start_run()
-    qtbot.waitUntil(lambda: res.store is not None and res.store.n_frames >= 3 and res.timeline.isEnabled(),
-                    timeout=60000)
-    assert res.running and res.view.visible
+    qtbot.waitUntil(lambda: res.store is not None and res.store.n_frames >= 3 and res.timeline.isEnabled()
+                    and res.view.visible, timeout=60000)  # the field appears with the first live redraw
+    assert res.running
     qtbot.wait(400)  # one live redraw
     shot(win, "results-running.png")
     res.stop_action.trigger()
