@@ -241,8 +241,17 @@ class MultigridCGSolver:
         import pyamg
 
         self.a = sp.csr_matrix(a)
-        self.ml = pyamg.ruge_stuben_solver(self.a, presmoother=SMOOTHER[0], postsmoother=SMOOTHER[1])
-        self.precond = self.ml.aspreconditioner(cycle="V")
+        # The hierarchy in single precision: a preconditioner only has to be roughly right, and
+        # the V-cycle is bound by memory traffic, which halves. CG itself stays in double.
+        self.ml = pyamg.ruge_stuben_solver(self.a.astype(np.float32), presmoother=SMOOTHER[0],
+                                           postsmoother=SMOOTHER[1])
+        ml = self.ml
+        n = self.a.shape[0]
+
+        def v_cycle(r):
+            return ml.solve(np.asarray(r, dtype=np.float32), maxiter=1, cycle="V", tol=1e-30).astype(np.float64)
+
+        self.precond = spla.LinearOperator((n, n), matvec=v_cycle, dtype=np.float64)
         self.rtol = rtol
         self.iterations = 0
         self.total_iterations = 0
