@@ -413,12 +413,46 @@ def load_model(path) -> Model:
     except OSError as e:
         raise ModelError(("", f"cannot be read ({e.strerror})"), src) from None
     try:
-        data = json.loads(text, parse_constant=_reject_constants)
+        checked = json.loads(text, parse_constant=_reject_constants, object_pairs_hook=_KeyedObject.from_pairs)
     except json.JSONDecodeError as e:
         raise ModelError(("", f"not valid JSON: {e.msg} at line {e.lineno}, column {e.colno}"), src) from None
     except ValueError as e:
         raise ModelError(("", f"not valid JSON: {e} (JSON numbers must be finite)"), src) from None
-    return parse_model(data, src)
+    repeated = _repeated_keys(checked)
+    if repeated:
+        raise ModelError([(path, "this key appears more than once in the same object; JSON readers keep only the "
+                                 "last value, so remove the one you do not mean") for path in repeated], src)
+    return parse_model(json.loads(text), src)
+
+
+class _KeyedObject(dict):
+    """A JSON object that remembers keys it met twice (json.loads keeps the last silently)."""
+
+    repeated: tuple = ()
+
+    @classmethod
+    def from_pairs(cls, pairs):
+        obj = cls()
+        seen = []
+        for key, value in pairs:
+            if key in obj:
+                seen.append(key)
+            obj[key] = value
+        obj.repeated = tuple(seen)
+        return obj
+
+
+def _repeated_keys(node, path: str = "") -> list[str]:
+    """Field paths (``parts[1].name``) of keys repeated within one object, anywhere in ``node``."""
+    out = []
+    if isinstance(node, _KeyedObject):
+        out += [f"{path}.{k}" if path else k for k in dict.fromkeys(node.repeated)]
+        for k, v in node.items():
+            out += _repeated_keys(v, f"{path}.{k}" if path else k)
+    elif isinstance(node, list):
+        for i, v in enumerate(node):
+            out += _repeated_keys(v, f"{path}[{i}]")
+    return out
 
 
 def save_model(model: Model, path) -> None:

@@ -173,6 +173,15 @@ def test_load_model_file_errors(tmp_path):
         load_model(folder)
     assert "folder" in str(err.value)
 
+    repeated = tmp_path / "repeated.json"  # a key typed twice: JSON keeps the last silently, we refuse
+    d = minimal_model_dict()
+    text = json.dumps(d, indent=1).replace('"name": "%s"' % d["parts"][0]["name"],
+                                           '"name": "first", "name": "%s"' % d["parts"][0]["name"], 1)
+    repeated.write_text(text)
+    with pytest.raises(solver.ModelError) as err:
+        load_model(repeated)
+    assert err.value.first_path == "parts[0].name" and "more than once" in str(err.value)
+
     not_object = tmp_path / "list.json"
     not_object.write_text("[1, 2]")
     with pytest.raises(solver.ModelError) as err:
