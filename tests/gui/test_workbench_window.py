@@ -243,10 +243,11 @@ def test_place_onto_face_clicked_in_view(main_window):
     assert part(w, "regulator").origin_mm == [75.0, 40.0, 11.6]
 
 
-def test_study_settings_form(main_window):
+def test_study_settings_form(main_window, artifacts):
     w = main_window
     w.item_tree.select("study", 0)
     f = w.properties.forms["study"]
+    assert w.properties.grab().save(str(artifacts / "workbench-study-form.png"))
     step = w.document.model.run.step_s
     type_into(f.numbers[("run", "duration_s")].edit, "900")
     assert w.document.model.run.duration_s == 900
@@ -257,6 +258,7 @@ def test_study_settings_form(main_window):
     f.method.setCurrentIndex(f.method.findData("reduced"))
     f.method.activated.emit(f.method.currentIndex())
     assert w.document.model.run.method == "reduced"
+    assert "0.1" in f.numbers[("run", "tolerance_k")].edit.placeholderText()
     type_into(f.numbers[("run", "tolerance_k")].edit, "0.05")
     assert w.document.model.run.tolerance_k == 0.05
     type_into(f.numbers[("run", "tolerance_k")].edit, "-1")

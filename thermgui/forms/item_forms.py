@@ -323,6 +323,8 @@ class StudyForm(ItemForm):
         self.scheme.setCurrentIndex(self.scheme.findData(d["run"]["scheme"]))
         self.mass.setCurrentIndex(self.mass.findData(d["run"]["mass"]))
         self.method.setCurrentIndex(self.method.findData(d["run"].get("method") or "full"))
+        reduced = d["run"].get("method") == "reduced"
+        self.numbers[("run", "tolerance_k")].edit.setPlaceholderText("0.1 (default)" if reduced else "fixed steps")
 
     def commit(self, path, value, label):
         d = self.doc.model_dict()
