@@ -270,9 +270,9 @@ def _events(stepper, grid: SampleGrid, v: np.ndarray, q: np.ndarray, qint: np.nd
     for k, i in enumerate(later):
         if stepper.cancel is not None and stepper.cancel():
             raise Cancelled(f"cancelled at t = {grid.times[prev_i]:g} s")
-        if k % CHUNK == 0:  # reconstruct a batch of fields in one product
-            fields = v @ q[:, later[k:k + CHUNK]]
-        d = np.ascontiguousarray(fields[:, k % CHUNK])
+        if k % CHUNK == 0:  # reconstruct a batch of fields in one product, one field per row
+            fields = q[:, later[k:k + CHUNK]].T @ v.T
+        d = fields[k % CHUNK]
         if not np.all(np.isfinite(d)):
             raise SolveError(f"non-finite temperature at t = {grid.times[i]:g} s in the reduced run")
         dt = grid.times[i] - grid.times[prev_i]
