@@ -112,11 +112,12 @@ class ProjectedRun:
         self._q0 = np.concatenate([self._q0, new.T @ mass_times(p, p.initial.astype(float))])
 
     def solve(self, r: int):
-        """(ModalSystem, Q (r, samples), Qint (r, intervals)) for the first ``r`` basis columns."""
+        """(Q (r, samples), Qint (r, intervals)): coordinates at the samples and their integrals over
+        each interval, for the first ``r`` basis columns."""
         g = self.grid
         modal = ModalSystem(self._kr[:r, :r], self._br[:r], self._q0[:r])
         z, zint = modal.propagate(g.t0, g.t1, g.c0, g.c1)
-        return modal, modal.coordinates(z), modal.coordinates(zint)
+        return modal.coordinates(z), modal.coordinates(zint)
 
 
 def hottest_nodes(problem, v: np.ndarray, q: np.ndarray, index: np.ndarray) -> np.ndarray:
@@ -202,24 +203,25 @@ def run_reduced(stepper) -> Iterator:
             added = basis.grow()
             if added:
                 proj.update()
-            exhausted = added == 0 and not basis.full and len(shifts) == 1  # A⁻¹M maps the basis into itself: exact
+            # nothing new from A⁻¹M: the basis is invariant and the projection exact
+            exhausted = added == 0 and not basis.full and len(shifts) == 1
             if not exhausted and block < MIN_BLOCKS:
                 continue
             r, r_small = basis.size, basis.size - basis.block_sizes[-1]
-            modal, q, qint = proj.solve(r)
+            q, qint = proj.solve(r)
             if nodes is None or exhausted:
                 nodes = hottest_nodes(p, basis.V, q, coarse)
             if exhausted:
                 info.error_estimate_k, info.converged = 0.0, True
             else:
-                q_small = prev_q if prev_q is not None and prev_q.shape[0] == r_small else proj.solve(r_small)[1]
+                q_small = prev_q if prev_q is not None and prev_q.shape[0] == r_small else proj.solve(r_small)[0]
                 info.error_estimate_k = estimate_error(basis.V, q, q_small, nodes)
                 info.history.append((r, info.error_estimate_k))
                 if info.error_estimate_k <= tol:  # confirm on this basis' hottest nodes and everywhere
                     nodes = hottest_nodes(p, basis.V, q, coarse)
                     info.error_estimate_k = estimate_error(basis.V, q, q_small, nodes, coarse)
                     info.converged = info.error_estimate_k <= tol
-            result = (r, modal, q, qint, nodes)
+            result = (r, q, qint, nodes)
             prev_q = q
             if info.converged or basis.full:
                 break
@@ -234,7 +236,7 @@ def run_reduced(stepper) -> Iterator:
         stepper.fall_back_to_full()
         yield from stepper._run_full()
         return
-    r, modal, q, qint, nodes = result
+    r, q, qint, nodes = result
     yield from _events(stepper, grid, basis.V[:, :r], q, qint, nodes, t_start)
 
 
