@@ -260,7 +260,7 @@ class Stepper:
         q_out0 = loads.convected_out(bd, c0)
         yield self._event(0, n_steps, 0.0, 0.0, d, True, q_in0, q_out0, q_in0 - q_out0, 0.0, t_start)
         lumped = p.lumped
-        prev = None  # (temperature before the last step, its step size)
+        prev = prev2 = None  # (temperature before the last step / the one before, step size)
         try:
             for i, st in enumerate(self.steps, start=1):
                 if self.cancel is not None and self.cancel():
@@ -276,7 +276,10 @@ class Stepper:
                 solver = self._solver_for(dt, th)
                 x0 = d
                 if prev is not None and prev[1] == dt and not getattr(solver, "exact", False):
-                    x0 = 2.0 * d - prev[0]  # iterative solvers start from the linear extrapolation in time
+                    if prev2 is not None and prev2[1] == dt:  # iterative solvers start from the
+                        x0 = 3.0 * (d - prev[0]) + prev2[0]  # quadratic extrapolation in time
+                    else:
+                        x0 = 2.0 * d - prev[0]
                 d_new = solver.solve(rhs, x0=x0)
                 self.solves += 1
                 if not np.all(np.isfinite(d_new)):
@@ -288,7 +291,7 @@ class Stepper:
                 q_out = th * loads.convected_out(bd_new, c1) + (1 - th) * loads.convected_out(bd, c0)
                 stored = float(np.einsum("i,i->", lumped, d_new - d)) / dt
                 resid = q_in - q_out - stored
-                prev = (d, dt)
+                prev2, prev = prev, (d, dt)
                 d, bd = d_new, bd_new
                 yield self._event(i, n_steps, st.t1, dt, d, st.output, q_in, q_out, stored, resid, t_start)
         finally:
