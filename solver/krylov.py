@@ -62,25 +62,21 @@ class KrylovBasis:
     at most ``max_columns`` columns are kept (storage is allocated once).
     """
 
-    def __init__(self, problem, shifts, method: str = "pardiso",
+    def __init__(self, problem, shift: float, method: str = "pardiso",
                  cancel: Callable[[], bool] | None = None, max_columns: int = 256):
         self.problem = problem
-        self.shifts = [float(s) for s in np.atleast_1d(shifts)]
+        self.shift = float(shift)
         self.cancel = cancel
         self.solves = 0
+        if self.cancel is not None and self.cancel():
+            raise Cancelled("cancelled while building the reduced basis")
         upper = problem.pattern.upper() if problem.pattern is not None and problem._shares_pattern() else None
-        self.solvers = []
-        for s in self.shifts:
-            if self.cancel is not None and self.cancel():
-                raise Cancelled("cancelled while building the reduced basis")
-            self.solvers.append(make_solver(problem.step_matrix(1.0 / s, 1.0), method, upper=upper))  # K + s·M
+        self.solver = make_solver(problem.step_matrix(1.0 / self.shift, 1.0), method, upper=upper)  # K + s·M
         n = problem.n_nodes
         start = [np.ones(n)]
         if np.ptp(problem.initial) > 0.0:
             start.append(problem.initial.astype(float))
-        patterns = load_patterns(problem)
-        self._next_rhs = [patterns] * len(self.shifts)  # one moment sequence per shift, taken in turn
-        self._turn = 0
+        self._next_rhs = load_patterns(problem)
         self._store = np.zeros((n, max_columns), order="F")  # V[:, :r] stays contiguous for BLAS
         self.size = 0
         self.block_sizes: list[int] = []
@@ -118,28 +114,26 @@ class KrylovBasis:
 
     def grow(self) -> int:
         """Add one block (one solve per column); returns the number of new columns."""
-        turn = self._turn
-        self._turn = (turn + 1) % len(self.shifts)
-        rhs, solver = self._next_rhs[turn], self.solvers[turn]
+        rhs, solver = self._next_rhs, self.solver
         if rhs.shape[1] == 0 or self.full:
             self.block_sizes.append(0)
             return 0
         if self.cancel is not None and self.cancel():
             raise Cancelled("cancelled while building the reduced basis")
-        if getattr(solver, "name", "").startswith("direct"):
-            w = solver.solve(rhs).reshape(rhs.shape)
-        else:  # iterative solvers take one right-hand side at a time
+        if solver.iterative:  # one right-hand side at a time
             w = np.column_stack([solver.solve(rhs[:, j]) for j in range(rhs.shape[1])])
+        else:
+            w = solver.solve(rhs).reshape(rhs.shape)
         self.solves += rhs.shape[1]
         start = self.size
         added = self._append(w)
-        self._next_rhs[turn] = mass_times(self.problem, self.V[:, start:start + added])
+        self._next_rhs = mass_times(self.problem, self.V[:, start:start + added])
         return added
 
     def close(self) -> None:
-        for solver in self.solvers:
-            solver.close()
-        self.solvers = []
+        if self.solver is not None:
+            self.solver.close()
+            self.solver = None
 
 
 def _sym(g: np.ndarray) -> np.ndarray:

@@ -11,7 +11,8 @@
 * ``superlu`` – scipy's SuperLU with a symmetric fill-reducing ordering, the last resort when
   neither package is installed.
 
-Every solver has ``solve(b, x0=None)`` and ``close()``.
+Every solver has ``solve(b, x0=None)``, ``close()`` and ``iterative`` (True when ``x0`` is used as
+the starting guess and right-hand sides are taken one at a time).
 """
 from __future__ import annotations
 
@@ -133,6 +134,7 @@ class DiagonalSolver:
     """A diagonal matrix (lumped capacity with an explicit step)."""
 
     name = "diagonal"
+    iterative = False
 
     def __init__(self, diag: np.ndarray):
         self.inv = 1.0 / diag
@@ -149,6 +151,7 @@ class SuperLUSolver:
     """scipy SuperLU with a symmetric fill-reducing ordering; factored once, reused every step."""
 
     name = "direct (SuperLU)"
+    iterative = False
 
     def __init__(self, a: sp.spmatrix):
         self.lu = spla.splu(sp.csc_matrix(a), permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
@@ -185,6 +188,7 @@ class PardisoCholesky:
     """
 
     name = "direct (PARDISO sparse Cholesky)"
+    iterative = False
 
     def __init__(self, a: sp.csr_matrix, upper=None):
         _point_pypardiso_at_mkl()
@@ -236,6 +240,7 @@ class MultigridCGSolver:
     """
 
     name = "multigrid-preconditioned CG (pyamg)"
+    iterative = True
 
     def __init__(self, a: sp.spmatrix, rtol: float = CG_RTOL):
         import pyamg

@@ -27,7 +27,7 @@ import numpy as np
 from .errors import Cancelled, SolveError
 from .krylov import KrylovBasis, mass_times
 from .modal import ModalSystem
-from .timegrid import plan_steps
+from .timegrid import output_times, plan_steps
 
 DEFAULT_TOLERANCE_K = 0.1
 MIN_BLOCKS = 4  # Krylov blocks before the first error check
@@ -63,8 +63,6 @@ class SampleGrid:
     def __init__(self, problem):
         run = problem.model.run
         duration = float(run.duration_s)
-        from .timegrid import output_times
-
         outputs = output_times(duration, run.output_interval_s)
         steps = plan_steps(duration, float(run.step_s), 1.0, problem.breakpoints(duration), outputs, False)
         self.t0 = np.array([s.t0 for s in steps])
@@ -185,13 +183,12 @@ def run_reduced(stepper) -> Iterator:
     info = stepper.reduced_info = ReducedInfo(tolerance_k=tol)
     grid = SampleGrid(p)
     info.samples = len(grid.t1)
-    shifts = stepper.reduced_shifts or [1.0 / math.sqrt(float(run.step_s) * float(run.duration_s))]
-    info.shift_per_s = shifts[0]
+    info.shift_per_s = 1.0 / math.sqrt(float(run.step_s) * float(run.duration_s))
     method = stepper.choice.method
     max_columns = int(min(MAX_COLUMNS, MAX_BASIS_BYTES // (8 * p.n_nodes)))
     t_factor = _time.perf_counter()
-    basis = KrylovBasis(p, shifts, method=method, cancel=stepper.cancel, max_columns=max_columns)
-    stepper.factorizations += len(shifts)
+    basis = KrylovBasis(p, info.shift_per_s, method=method, cancel=stepper.cancel, max_columns=max_columns)
+    stepper.factorizations += 1
     info.factor_s = _time.perf_counter() - t_factor
     try:
         proj = ProjectedRun(p, basis, grid)
@@ -204,7 +201,7 @@ def run_reduced(stepper) -> Iterator:
             if added:
                 proj.update()
             # nothing new from A⁻¹M: the basis is invariant and the projection exact
-            exhausted = added == 0 and not basis.full and len(shifts) == 1
+            exhausted = added == 0 and not basis.full
             if not exhausted and block < MIN_BLOCKS:
                 continue
             r, r_small = basis.size, basis.size - basis.block_sizes[-1]

@@ -128,7 +128,6 @@ class Stepper:
         if self.method not in ("full", "reduced"):
             raise ValueError(f"unknown method {self.method!r}")
         self.reduced_info = None
-        self.reduced_shifts = None  # shifts (1/s) for a reduced run; None = chosen from the run
         self.tolerance_k = tolerance_k if tolerance_k is not None else getattr(run, "tolerance_k", None)
         self.adaptive = self.tolerance_k is not None
         self.outputs = output_times(float(run.duration_s), run.output_interval_s)
@@ -275,7 +274,7 @@ class Stepper:
                 rhs += f
                 solver = self._solver_for(dt, th)
                 x0 = d
-                if prev is not None and prev[1] == dt and not getattr(solver, "exact", False):
+                if solver.iterative and prev is not None and prev[1] == dt:
                     if prev2 is not None and prev2[1] == dt:  # iterative solvers start from the
                         x0 = 3.0 * (d - prev[0]) + prev2[0]  # quadratic extrapolation in time
                     else:

@@ -113,7 +113,7 @@ def test_modal_integration_is_exact_for_piecewise_linear_loads():
 @pytest.mark.parametrize("mass", ["lumped", "consistent"])
 def test_basis_is_capacity_orthonormal_and_holds_uniform_and_initial_fields(mass):
     p = solver.build_problem(solver.parse_model(_model_dict(mass=mass)))
-    basis = KrylovBasis(p, [0.05], method="superlu", max_columns=40)
+    basis = KrylovBasis(p, 0.05, method="superlu", max_columns=40)
     for _ in range(3):
         basis.grow()
     v = basis.V
