@@ -96,13 +96,14 @@ class KrylovBasis:
         """Capacity-orthonormalize ``w`` against V and itself, dropping dependent directions."""
         mass = lambda x: mass_times(self.problem, x)  # noqa: E731
         scale = float(np.max(np.einsum("ij,ij->j", w, mass(w)), initial=0.0))
-        for _ in range(2):  # classical Gram–Schmidt, twice
-            if self.size:
-                w = w - self.V @ (self.V.T @ mass(w))
+        # block classical Gram–Schmidt twice, normalizing within the block after each pass (the
+        # normalization can magnify what one pass leaves along V; the second pass removes it)
+        if self.size:
+            w = w - self.V @ (self.V.T @ mass(w))
         vals, vecs = np.linalg.eigh(_sym(w.T @ mass(w)))
         keep = vals > DEFLATION_TOL ** 2 * scale
         w = w @ (vecs[:, keep] / np.sqrt(vals[keep]))
-        if self.size and w.shape[1]:  # one more pass keeps Vᵀ M V = I to round-off
+        if self.size and w.shape[1]:
             w = w - self.V @ (self.V.T @ mass(w))
             vals, vecs = np.linalg.eigh(_sym(w.T @ mass(w)))
             w = w @ (vecs / np.sqrt(vals))

@@ -49,6 +49,22 @@ def test_each_solver_matches_spsolve(system, method):
     s.close()
 
 
+def test_pardiso_several_right_hand_sides_without_refinement(system):
+    """Several right-hand sides in one call match spsolve column by column, and PARDISO performed
+    no iterative refinement steps (iparm(7) reports them; refinement would triple each solve)."""
+    p, a, b, ref = system
+    if not linsolve.have_pardiso():
+        pytest.skip("pypardiso not installed")
+    rhs = np.column_stack([b, p.lumped, np.sin(np.arange(p.n_nodes))])
+    s = linsolve.make_solver(a, "pardiso", upper=p.pattern.upper())
+    x = s.solve(rhs)
+    assert s.ps.get_iparm(7) == 0
+    s.close()
+    for j in range(rhs.shape[1]):
+        r = spla.spsolve(a.tocsc(), rhs[:, j])
+        assert np.abs(x[:, j] - r).max() < 1e-10 * np.abs(r).max()
+
+
 def test_multigrid_warm_start_and_nearby_matrix(system):
     p, a, b, ref = system
     s = linsolve.MultigridCGSolver(a)
