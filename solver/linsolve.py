@@ -3,9 +3,13 @@
 :func:`choose_method` picks a method and says why:
 
 * ``pardiso`` – sparse Cholesky (LDLᵀ) by Intel MKL PARDISO through ``pypardiso``, on the upper
-  triangle in symmetric positive-definite mode, while the estimated factor fits comfortably in
-  memory. pypardiso installs from PyPI as a wheel on Linux, Windows and macOS (Intel) and
-  brings MKL (an optimized BLAS) with it; scikit-sparse/CHOLMOD needs SuiteSparse to build.
+  triangle in symmetric positive-definite mode, while the factor fits comfortably in memory.
+  pypardiso installs from PyPI as a wheel on Linux, Windows and macOS (Intel) and brings MKL
+  (an optimized BLAS) with it; scikit-sparse/CHOLMOD needs SuiteSparse to build.
+* ``pardiso-single`` – the same in single precision (half the memory and factorization time),
+  each solution refined in double against the step matrix, for factors too large to keep in
+  double precision comfortably. Near that limit, PARDISO's analysis of the real sparsity pattern
+  (a third of a factorization's time) replaces the worst-case size estimate.
 * ``multigrid`` – conjugate gradients preconditioned by classical (Ruge–Stüben) algebraic
   multigrid from pyamg: memory linear in the node count, warm-started from the previous step.
 * ``superlu`` – scipy's SuperLU with a symmetric fill-reducing ordering, the last resort when
@@ -34,7 +38,14 @@ SMOOTHER = (("gauss_seidel", {"sweep": "forward"}), ("gauss_seidel", {"sweep": "
 # 10 GB at 1 000 000 nodes, growing like n^(4/3) (issue 5's measurements, PARDISO and CHOLMOD).
 FACTOR_BYTES_AT_1M = 10e9
 DIRECT_MEMORY_SHARE = 0.25  # "fits comfortably": at most this share of the available memory
-DIRECT_MAX_BYTES = 2.5e9  # above this, factorization takes minutes on two cores
+DIRECT_MAX_BYTES = 2.5e9  # above this (as stored), factorization takes minutes on two cores
+# Above this (double precision, all factors of a run), factor in single precision and refine in
+# double: half the memory and factorization time for an extra solve or two per step. Chosen so
+# that a 1M-node enclosure (2.2 GB in double, measured) stays within 3 GB in all.
+DOUBLE_FACTOR_MAX_BYTES = 1.5e9
+REFINE_CORRECTION_K = 1e-6  # refinement stops once a correction is this small (K, for step solves)
+MAX_REFINEMENTS = 6
+ANALYSIS_MAX_NODES = 4_000_000  # beyond this even the analysis takes long; multigrid
 ADAPTIVE_DIRECT_NODE_LIMIT = 60_000  # adaptive runs factor one matrix per step size
 
 
@@ -93,9 +104,15 @@ def _available_memory() -> int:
 
 
 def choose_method(n: int, requested: str = "auto", adaptive: bool = False,
-                  available_bytes: int | None = None) -> SolverChoice:
-    """Method name and a one-line reason for a problem of ``n`` nodes."""
-    if requested not in ("auto", "direct", "multigrid", "pardiso", "superlu"):
+                  available_bytes: int | None = None, factor_bytes: float | None = None,
+                  matrices: int = 1) -> SolverChoice:
+    """Method name and a one-line reason for a problem of ``n`` nodes.
+
+    ``factor_bytes``: the double-precision factor of one step matrix as PARDISO's analysis
+    measured it (:func:`pardiso_factor_bytes`); without it a worst-case estimate from ``n``.
+    ``matrices``: how many step matrices the run keeps factored at once (e.g. 2 for
+    Crank–Nicolson with backward-Euler start-up steps)."""
+    if requested not in ("auto", "direct", "multigrid", "pardiso", "pardiso-single", "superlu"):
         raise ValueError(f"unknown linear solver {requested!r}")
     pardiso, amg = have_pardiso(), have_pyamg()
     if requested == "direct":
@@ -106,28 +123,49 @@ def choose_method(n: int, requested: str = "auto", adaptive: bool = False,
         if amg:
             return SolverChoice("multigrid", "requested")
         return SolverChoice("superlu", "multigrid requested but pyamg is not installed: SuperLU")
-    if requested == "pardiso" and not pardiso:
+    if requested in ("pardiso", "pardiso-single") and not pardiso:
         return SolverChoice("superlu", "PARDISO requested but pypardiso is not installed: SuperLU")
-    if requested in ("pardiso", "superlu"):
+    if requested in ("pardiso", "pardiso-single", "superlu"):
         return SolverChoice(requested, "requested")
     avail = available_bytes if available_bytes is not None else _available_memory()
-    est = estimated_factor_bytes(n)
-    fits = est <= min(DIRECT_MEMORY_SHARE * avail, DIRECT_MAX_BYTES)
-    size = f"{n:,} nodes, factor about {est / 1e9:.2g} GB of {avail / 1e9:.3g} GB available"
-    if fits and not (adaptive and n > ADAPTIVE_DIRECT_NODE_LIMIT):
-        if pardiso:
+    est = float(factor_bytes) if factor_bytes is not None else estimated_factor_bytes(n)
+    total = est * max(1, matrices)
+    budget = min(DIRECT_MEMORY_SHARE * avail, DIRECT_MAX_BYTES)
+    how = "measured by PARDISO's analysis" if factor_bytes is not None else "estimated"
+    count = f"{matrices} step matrices, " if matrices > 1 else ""
+    size = f"{n:,} nodes, {count}factor {how} {total / 1e9:.2g} GB of {avail / 1e9:.3g} GB available"
+    if adaptive and n > ADAPTIVE_DIRECT_NODE_LIMIT:
+        fits = False
+        why = "adaptive steps need one factorization per step size, too slow at this size"
+    else:
+        fits = total <= budget or (pardiso and total / 2 <= budget)
+        why = "a factorization would not fit comfortably"
+    if fits:
+        if pardiso and total <= min(budget, DOUBLE_FACTOR_MAX_BYTES):
             return SolverChoice("pardiso", f"{size}: sparse Cholesky (PARDISO) fits comfortably and is "
                                            "fastest per step")
+        if pardiso:
+            return SolverChoice("pardiso-single", f"{size}: sparse Cholesky (PARDISO) in single precision "
+                                                  "(half the memory), refined in double")
         if not amg:
             return SolverChoice("superlu", f"{size}: neither pypardiso nor pyamg is installed: SuperLU")
         return SolverChoice("multigrid", f"{size}: pypardiso is not installed; multigrid CG instead")
     if amg:
-        why = ("adaptive steps need one factorization per step size, too slow at this size"
-               if fits else "a factorization would not fit comfortably")
         return SolverChoice("multigrid", f"{size}: {why}; multigrid CG keeps memory linear in the node count")
     if pardiso:
         return SolverChoice("pardiso", f"{size}: pyamg is not installed; sparse Cholesky (PARDISO) anyway")
     return SolverChoice("superlu", f"{size}: neither pyamg nor pypardiso is installed: SuperLU as a last resort")
+
+
+def needs_analysis(n: int, requested: str = "auto", adaptive: bool = False, matrices: int = 1,
+                   available_bytes: int | None = None) -> bool:
+    """True when the worst-case estimate alone would not pick PARDISO in double precision, so a
+    PARDISO analysis of the real pattern (:func:`pardiso_factor_bytes`) may change the choice."""
+    if requested != "auto" or (adaptive and n > ADAPTIVE_DIRECT_NODE_LIMIT) or n > ANALYSIS_MAX_NODES:
+        return False
+    if not have_pardiso():
+        return False
+    return choose_method(n, requested, adaptive, available_bytes, matrices=matrices).method != "pardiso"
 
 
 class DiagonalSolver:
@@ -180,51 +218,131 @@ def _new_pardiso(pypardiso):
     return ps
 
 
+def _pardiso_handle(pypardiso, single: bool):
+    """A PyPardisoSolver in SPD mode with PARDISO's own defaults for that type (``pardisoinit``),
+    except: no iterative refinement inside PARDISO, and ``single`` precision if asked.
+
+    PARDISO's defaults refine every solve twice (iparm(8) = 2), which triples its cost; a Cholesky
+    factorization is backward stable and the residual without refinement is at round-off
+    (measured 2e-12 relative at 200k nodes). Single precision (iparm(28) = 1) halves the factor's
+    memory and time; :class:`PardisoCholesky` then refines in double itself."""
+    import ctypes
+
+    ps = _new_pardiso(pypardiso)
+    init = ps.libmkl.pardisoinit
+    init.restype = None
+    init.argtypes = [ctypes.POINTER(ps._pt_type[0]), ctypes.POINTER(ctypes.c_int32), ctypes.POINTER(ctypes.c_int32)]
+    init(ps.pt.ctypes.data_as(ctypes.POINTER(ps._pt_type[0])), ctypes.byref(ctypes.c_int32(ps.mtype)),
+         ps.iparm.ctypes.data_as(ctypes.POINTER(ctypes.c_int32)))
+    ps.iparm[7] = 0  # iparm(8): refine only if pivots were perturbed (never, for SPD)
+    ps.iparm[27] = 1 if single else 0  # iparm(28): precision of the factor and the solves
+    ps.size_limit_storage = 0  # pypardiso keeps a hash, not a copy, of the matrix
+    return ps
+
+
+def _upper(a: sp.csr_matrix, upper, dtype) -> sp.csr_matrix:
+    if upper is not None:
+        indptr, indices, take = upper
+        u = sp.csr_matrix((a.data[take].astype(dtype), indices, indptr), shape=a.shape)
+    else:
+        u = sp.triu(a, format="csr").astype(dtype)
+    u.sort_indices()
+    return u
+
+
+def pardiso_factor_bytes(a: sp.csr_matrix, upper=None) -> int:
+    """Memory of PARDISO's double-precision Cholesky factor of ``a`` (permanent + factor, bytes),
+    from its analysis phase (ordering and symbolic factorization: about 0.3 of the factorization's
+    time). Only the sparsity pattern matters, so one analysis serves every step size."""
+    _point_pypardiso_at_mkl()
+    import pypardiso
+
+    ps = _pardiso_handle(pypardiso, single=False)
+    u = _upper(a, upper, np.float64)
+    try:
+        ps.set_phase(11)
+        ps._call_pardiso(u, np.zeros((u.shape[0], 1)))
+        return 1024 * int(max(ps.iparm[15], 0) + max(ps.iparm[16], 0))
+    except Exception as e:  # PyPardisoError
+        raise SolveError(f"PARDISO could not analyse the step matrix ({e})") from None
+    finally:
+        ps.free_memory(everything=True)
+
+
 class PardisoCholesky:
     """MKL PARDISO, real symmetric positive definite (mtype 2), on the upper triangle in CSR.
 
     ``upper`` is (indptr, indices, take) from :meth:`solver.assemble.GridPattern.upper`; without
-    it the upper triangle is extracted with scipy.
+    it the upper triangle is extracted with scipy. ``precision="single"`` factors in single
+    precision (half the memory and time) and refines each solution in double against ``a``
+    until the relative residual is below ``rtol`` or the last correction is below
+    ``correction_tol`` (in the solution's units: K for time steps); ``refine=False`` skips the
+    refinement (for Krylov basis directions, where an exact solve is not needed).
     """
 
-    name = "direct (PARDISO sparse Cholesky)"
     iterative = False
 
-    def __init__(self, a: sp.csr_matrix, upper=None):
+    def __init__(self, a: sp.csr_matrix, upper=None, precision: str = "double", rtol: float = CG_RTOL,
+                 correction_tol: float = REFINE_CORRECTION_K, refine: bool = True):
         _point_pypardiso_at_mkl()
         import pypardiso
 
-        if upper is not None:
-            indptr, indices, take = upper
-            u = sp.csr_matrix((a.data[take], indices, indptr), shape=a.shape)
-        else:
-            u = sp.triu(a, format="csr")
-        u.sort_indices()
-        self.u = u
-        self.ps = _new_pardiso(pypardiso)
-        self.ps.size_limit_storage = 0  # keep a hash, not a copy, of the matrix
+        if precision not in ("double", "single"):
+            raise ValueError(f"unknown precision {precision!r}")
+        self.single = precision == "single"
+        self.name = ("direct (PARDISO sparse Cholesky, single precision refined in double)" if self.single
+                     else "direct (PARDISO sparse Cholesky)")
+        self.dtype = np.float32 if self.single else np.float64
+        self.u = _upper(a, upper, self.dtype)
+        self.a = sp.csr_matrix(a) if self.single else None
+        self.rtol, self.correction_tol, self.refine = rtol, correction_tol, refine
+        self.ps = _pardiso_handle(pypardiso, self.single)
         try:
-            self.ps.factorize(u)
+            self.ps.set_phase(12)
+            self.ps._call_pardiso(self.u, np.zeros((self.u.shape[0], 1), dtype=self.dtype))
         except Exception as e:  # PyPardisoError: not positive definite, out of memory, ...
             raise SolveError(f"PARDISO could not factor the step matrix ({e})") from None
-        # PARDISO's defaults refine every solve twice (iparm(8) = 2), which triples the cost of a
-        # solve; a Cholesky factorization is backward stable and the residual without refinement is
-        # at round-off (measured 2e-12 relative at 200k nodes), so refine only if pivots were
-        # perturbed (iparm(8) = 0: PARDISO's own rule for that case).
-        self.ps.set_iparm(8, 0)
-        self.iterations = 0
+        self.iterations = 0  # refinement steps of the last solve
+
+    def _solve(self, b: np.ndarray) -> np.ndarray:
+        self.ps.set_phase(33)
+        b = np.asarray(b, dtype=self.dtype)
+        # PARDISO reads several right-hand sides column after column (Fortran order)
+        b = np.ascontiguousarray(b) if b.ndim == 1 else np.asfortranarray(b)
+        return self.ps._call_pardiso(self.u, b).astype(np.float64, copy=False).reshape(b.shape)
 
     def solve(self, b, x0=None):
         """x for one right-hand side (N,) or several (N, k) at once."""
-        self.ps.set_phase(33)
-        b = np.asarray(b, dtype=float)
-        # PARDISO reads several right-hand sides column after column (Fortran order)
-        b = np.ascontiguousarray(b) if b.ndim == 1 else np.asfortranarray(b)
-        return self.ps._call_pardiso(self.u, b)
+        b = np.asarray(b, dtype=np.float64)
+        x = self._solve(b)
+        self.iterations = 0
+        if not (self.single and self.refine):
+            return x
+        bnorm = np.linalg.norm(b, axis=0)
+        r = b - self.a @ x
+        rnorm = np.linalg.norm(r, axis=0)
+        while not np.all(rnorm <= self.rtol * bnorm):
+            if self.iterations >= MAX_REFINEMENTS:
+                raise SolveError(f"the single-precision factorization did not refine to the tolerance in "
+                                 f"{MAX_REFINEMENTS} steps; use a direct solver in double precision or multigrid")
+            dx = self._solve(r)
+            x += dx
+            self.iterations += 1
+            r = b - self.a @ x
+            new = np.linalg.norm(r, axis=0)
+            # contraction of this refinement; what is left of the error is about that times the correction
+            rho = float(np.max(new / np.maximum(rnorm, np.finfo(float).tiny)))
+            if rho > 0.5:
+                raise SolveError("refining the single-precision factorization does not converge; use a direct "
+                                 "solver in double precision or multigrid")
+            if rho * float(np.abs(dx).max()) <= self.correction_tol:
+                break
+            rnorm = new
+        return x
 
     def factor_bytes(self) -> int:
         """Memory PARDISO reports for the factor (permanent + factorization), bytes."""
-        return 1024 * int(max(self.ps.get_iparm(15), 0) + max(self.ps.get_iparm(16), 0))
+        return 1024 * int(max(self.ps.get_iparm(16), 0) + max(self.ps.get_iparm(17), 0))
 
     def close(self):
         if self.ps is not None:
@@ -289,10 +407,12 @@ class MultigridCGSolver:
         self.ml = None
 
 
-def make_solver(a: sp.spmatrix, method: str, upper=None):
+def make_solver(a: sp.spmatrix, method: str, upper=None, refine: bool = True):
     """A solver object for matrix ``a`` by method name (see :func:`choose_method`)."""
-    if method in ("pardiso",):
+    if method == "pardiso":
         return PardisoCholesky(a, upper)
+    if method == "pardiso-single":
+        return PardisoCholesky(a, upper, precision="single", refine=refine)
     if method in ("direct", "superlu"):
         return SuperLUSolver(a)
     if method == "multigrid":

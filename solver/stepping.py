@@ -21,7 +21,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
 from .errors import Cancelled, ModelError, SolveError
-from .linsolve import DiagonalSolver, choose_method, make_solver
+from .linsolve import DiagonalSolver, choose_method, make_solver, needs_analysis, pardiso_factor_bytes
 from .timegrid import TimeStep, output_times, plan_steps
 
 THETA = {"backward-euler": 1.0, "crank-nicolson": 0.5, "forward-euler": 0.0}
@@ -156,9 +156,23 @@ class Stepper:
             self._n_steps_estimate = len(self.outputs) - 1
         else:
             self._check_explicit_stability()
-        self.choice = choose_method(problem.n_nodes, linear_solver,
-                                    adaptive=self.adaptive and self.method == "full")
+        self.choice = self._choose_solver(linear_solver)
         self._mass_cache: dict = {}
+
+    def _choose_solver(self, requested: str):
+        """The linear-solver choice for this run; near the memory limit PARDISO's analysis of the
+        real sparsity pattern replaces the worst-case estimate of the factor's size."""
+        p = self.problem
+        adaptive = self.adaptive and self.method == "full"
+        if self.method == "reduced" or self.adaptive:
+            matrices = 1  # adaptive runs above a small size use multigrid anyway
+        else:
+            matrices = max(1, len({(round(s.dt, 12), s.theta) for s in self.steps if s.theta > 0.0}))
+        factor_bytes = None
+        if needs_analysis(p.n_nodes, requested, adaptive, matrices):
+            upper = p.pattern.upper() if p.pattern is not None and p._shares_pattern() else None
+            factor_bytes = pardiso_factor_bytes(p.step_matrix(1.0, 1.0), upper)
+        return choose_method(p.n_nodes, requested, adaptive=adaptive, factor_bytes=factor_bytes, matrices=matrices)
 
     def _check_explicit_stability(self) -> None:
         """Refuse forward Euler above its critical step (ModelError naming run.step_s)."""

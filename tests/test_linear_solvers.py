@@ -38,10 +38,10 @@ def system():
     return p, a, b, spla.spsolve(a.tocsc(), b)
 
 
-@pytest.mark.parametrize("method", ["pardiso", "superlu", "multigrid"])
+@pytest.mark.parametrize("method", ["pardiso", "pardiso-single", "superlu", "multigrid"])
 def test_each_solver_matches_spsolve(system, method):
     p, a, b, ref = system
-    if method == "pardiso" and not linsolve.have_pardiso():
+    if method.startswith("pardiso") and not linsolve.have_pardiso():
         pytest.skip("pypardiso not installed")
     s = linsolve.make_solver(a, method, upper=p.pattern.upper())
     x = s.solve(b)
@@ -100,12 +100,66 @@ def test_automatic_choice_and_reason(monkeypatch):
         linsolve.choose_method(10, requested="magic")
 
 
+def test_single_precision_factor_is_refined_in_double(system):
+    """The single-precision factor alone leaves a residual far above double round-off; refinement
+    against the double matrix brings the solution to spsolve's within 1e-6 K (its stopping rule)."""
+    p, a, b, ref = system
+    if not linsolve.have_pardiso():
+        pytest.skip("pypardiso not installed")
+    raw = linsolve.make_solver(a, "pardiso-single", upper=p.pattern.upper(), refine=False)
+    x_raw = raw.solve(b)
+    raw.close()
+    s = linsolve.make_solver(a, "pardiso-single", upper=p.pattern.upper())
+    x = s.solve(b)
+    s.close()
+    assert np.linalg.norm(a @ x_raw - b) > 1e-9 * np.linalg.norm(b)  # single precision really was used
+    assert 1 <= s.iterations <= 3
+    assert np.abs(x - ref).max() < 1e-6
+    assert np.abs(x - ref).max() < 1e-3 * np.abs(x_raw - ref).max()
+
+
+def test_choice_with_measured_factor_size():
+    """PARDISO's analysis of the real pattern replaces the worst-case estimate: double precision
+    when the factors are small, single precision (half the memory) up to the budget, multigrid
+    beyond; several step matrices count together."""
+    if not linsolve.have_pardiso():
+        pytest.skip("pypardiso not installed")
+    gb = 1024**3
+    avail = 16 * gb
+    assert linsolve.choose_method(200_000, factor_bytes=0.3e9, available_bytes=avail).method == "pardiso"
+    mid = linsolve.choose_method(1_000_000, factor_bytes=2.2e9, available_bytes=avail)
+    assert mid.method == "pardiso-single" and "measured" in mid.reason and "single precision" in mid.reason
+    assert linsolve.choose_method(1_000_000, factor_bytes=2.2e9, available_bytes=avail,
+                                  matrices=3).method == "multigrid"
+    assert linsolve.choose_method(200_000, factor_bytes=0.3e9, available_bytes=avail, matrices=2).method == "pardiso"
+    assert linsolve.choose_method(1_000_000, factor_bytes=10e9, available_bytes=avail).method == "multigrid"
+    # the analysis is only worth running where the estimate alone would not pick double precision
+    assert not linsolve.needs_analysis(20_000)
+    assert linsolve.needs_analysis(1_000_000, available_bytes=avail)
+    assert not linsolve.needs_analysis(1_000_000, requested="multigrid")
+    assert not linsolve.needs_analysis(1_000_000, adaptive=True)
+
+
+def test_analysis_reports_the_factor_size(system):
+    """PARDISO's analysis phase (used to choose the solver) gives an upper figure for the factor."""
+    p, a, b, ref = system
+    if not linsolve.have_pardiso():
+        pytest.skip("pypardiso not installed")
+    measured = linsolve.pardiso_factor_bytes(a, p.pattern.upper())
+    s = linsolve.make_solver(a, "pardiso", upper=p.pattern.upper())
+    nnz_factor = int(s.ps.get_iparm(18))  # non-zeros in the factor, reported by the factorization
+    assert nnz_factor > a.nnz // 2
+    # the analysis' figure covers the factor's values and what the factorization then reports
+    assert measured >= max(8 * nnz_factor, s.factor_bytes())
+    s.close()
+
+
 @pytest.mark.parametrize("mass", ["lumped", "consistent"])
 def test_stepper_results_agree_across_solvers(mass):
     p = _problem(mass)
     fields = {}
-    for method in ("superlu", "pardiso", "multigrid"):
-        if method == "pardiso" and not linsolve.have_pardiso():
+    for method in ("superlu", "pardiso", "pardiso-single", "multigrid"):
+        if method.startswith("pardiso") and not linsolve.have_pardiso():
             continue
         st = Stepper(p, linear_solver=method)
         assert st.choice.method == method and st.choice.reason
