@@ -2,7 +2,8 @@
 from __future__ import annotations
 
 from PySide6.QtCore import Qt
-from PySide6.QtWidgets import QHBoxLayout, QLabel, QProgressBar, QVBoxLayout, QWidget
+from PySide6.QtGui import QPainter
+from PySide6.QtWidgets import QHBoxLayout, QLabel, QProgressBar, QSizePolicy, QVBoxLayout, QWidget
 
 from .timefmt import format_duration, format_time
 
@@ -22,6 +23,24 @@ def remaining_seconds(step: int, n_steps: int, elapsed_s: float) -> float | None
     return elapsed_s * (n_steps - step) / step
 
 
+class ElidingLabel(QLabel):
+    """A one-line label that gives way to its neighbours and ends in "…" when it is cut short
+    (the whole text stays in ``text()`` and the tooltip)."""
+
+    def __init__(self, text: str = "", parent=None):
+        super().__init__(text, parent)
+        self.setSizePolicy(QSizePolicy.Ignored, QSizePolicy.Preferred)
+
+    def setText(self, text: str) -> None:  # noqa: N802 - Qt's name
+        super().setText(text)
+        self.setToolTip(text)
+
+    def paintEvent(self, event) -> None:  # noqa: N802 - Qt's name
+        painter = QPainter(self)
+        shown = self.fontMetrics().elidedText(self.text(), Qt.ElideRight, self.contentsRect().width())
+        painter.drawText(self.contentsRect(), int(self.alignment()) | int(Qt.AlignVCenter), shown)
+
+
 class RunStatus(QWidget):
     def __init__(self, parent=None):
         super().__init__(parent)
@@ -30,7 +49,10 @@ class RunStatus(QWidget):
         self.bar.setValue(0)
         self.bar.setFormat("idle")
         self.bar.setTextVisible(True)
-        self.detail = QLabel("Press Run (F5) to solve the model.")
+        # room for the longest progress text; the line beside it gives way (its tooltip keeps it all)
+        self.bar.setMinimumWidth(self.bar.fontMetrics().horizontalAdvance(
+            "100 % · t = 59.9 min · about 59 min left") + 30)
+        self.detail = ElidingLabel("Press Run (F5) to solve the model.")
         self.message = QLabel()
         self.message.setWordWrap(True)
         self.message.setTextInteractionFlags(Qt.TextSelectableByMouse)
@@ -68,13 +90,18 @@ class RunStatus(QWidget):
         self.detail.setToolTip(describe)
 
     def progress(self, step: int, n_steps: int, time_s: float, elapsed_s: float) -> None:
+        """Progress in the bar itself (the line beside it keeps the run's description): without a
+        graphics card every repaint is composed through software OpenGL together with the 3D view,
+        and a wide label repainting every second cost the solver about three times the bar's share
+        (measured: 0.07 against 0.03 CPU-s per update)."""
         self.bar.setRange(0, 1000)
         self.bar.setValue(int(1000 * step / max(1, n_steps)))
-        self.bar.setFormat("%p %")
         left = remaining_seconds(step, n_steps, elapsed_s)
-        self.detail.setText(f"step {step:,} of {n_steps:,} · t = {format_time(time_s)} · "
-                            f"about {format_duration(left)} left" if left is not None else
-                            f"step {step:,} of {n_steps:,}")
+        text = f"%p % · t = {format_time(time_s)}"
+        if left is not None:
+            text += f" · about {format_duration(left)} left"
+        self.bar.setFormat(text)
+        self.bar.setToolTip(f"step {step:,} of {n_steps:,}")
 
     def finished(self, text: str) -> None:
         self.bar.setRange(0, 1000)

@@ -3,10 +3,10 @@
 All numerics stay in ``solver``; this object only forwards the step stream to the window as Qt
 signals. Fields are sent as float32 copies at output times, and in between at most every
 ``preview_every_s`` seconds of wall time for the live view, so the solve is not held up.
-Progress goes out at most every ``progress_every_s`` (1 s): without a graphics card the
-window's repaints appear to cost software-OpenGL work on the solver's cores; going from 10
-updates a second to 1 cut that work from about 7 to 4-5 CPU-seconds on a 160 000-node run
-(benchmarks/gui_responsiveness.py, per-thread CPU times).
+Progress goes out at most every ``progress_every_s`` (2 s): the 3D view is an OpenGL widget, so
+every repaint of the window is composed through OpenGL, which without a graphics card costs about
+0.08 CPU-seconds on the solver's cores per progress update (benchmarks/gui_responsiveness.py and
+per-thread CPU times; 10 updates a second had cost several CPU-seconds per run).
 """
 from __future__ import annotations
 
@@ -42,7 +42,7 @@ class RunWorker(QObject):
     stopped = Signal(str)
     done = Signal()
 
-    def __init__(self, model, out_dir, prepare=None, preview_every_s: float = 0.3, progress_every_s: float = 1.0):
+    def __init__(self, model, out_dir, prepare=None, preview_every_s: float = 0.3, progress_every_s: float = 2.0):
         super().__init__()
         self.prepare = prepare
         self.model = model
