@@ -325,8 +325,7 @@ class PardisoCholesky:
         rnorm = np.linalg.norm(r, axis=0)
         while not np.all(rnorm <= self.rtol * bnorm):
             if self.iterations >= MAX_REFINEMENTS:
-                raise SolveError(f"the single-precision factorization did not refine to the tolerance in "
-                                 f"{MAX_REFINEMENTS} steps; use a direct solver in double precision or multigrid")
+                return self._conjugate_gradients(b, x)
             dx = self._solve(r)
             x += dx
             self.iterations += 1
@@ -334,13 +333,31 @@ class PardisoCholesky:
             new = np.linalg.norm(r, axis=0)
             # contraction of this refinement; what is left of the error is about that times the correction
             rho = float(np.max(new / np.maximum(rnorm, np.finfo(float).tiny)))
-            if rho > 0.5:
-                raise SolveError("refining the single-precision factorization does not converge; use a direct "
-                                 "solver in double precision or multigrid")
+            if rho > 0.5:  # too inexact a factor for plain refinement: let CG use it instead
+                return self._conjugate_gradients(b, x)
             if rho * float(np.abs(dx).max()) <= self.correction_tol:
                 break
             rnorm = new
         return x
+
+    def _conjugate_gradients(self, b: np.ndarray, x: np.ndarray) -> np.ndarray:
+        """CG on the double matrix preconditioned by the single-precision factor (symmetric
+        positive definite, so CG converges however inexact the factor), from ``x``."""
+        n = self.a.shape[0]
+        pre = spla.LinearOperator((n, n), matvec=self._solve, dtype=np.float64)
+        cols = [b] if b.ndim == 1 else [b[:, j] for j in range(b.shape[1])]
+        starts = [x] if x.ndim == 1 else [x[:, j] for j in range(x.shape[1])]
+        out = []
+        for bj, xj in zip(cols, starts):
+            count = [0]
+            xj, info = spla.cg(self.a, bj, x0=xj, rtol=self.rtol, M=pre, maxiter=CG_MAXITER,
+                               callback=lambda _: count.__setitem__(0, count[0] + 1))
+            self.iterations += count[0]
+            if info != 0:
+                raise SolveError(f"conjugate gradients on the single-precision factorization did not converge in "
+                                 f"{count[0]} iterations")
+            out.append(xj)
+        return out[0] if b.ndim == 1 else np.column_stack(out)
 
     def factor_bytes(self) -> int:
         """Memory PARDISO reports for the factor (permanent + factorization), bytes."""

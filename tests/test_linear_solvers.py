@@ -118,6 +118,22 @@ def test_single_precision_factor_is_refined_in_double(system):
     assert np.abs(x - ref).max() < 1e-3 * np.abs(x_raw - ref).max()
 
 
+def test_single_precision_factor_too_inexact_for_refinement_falls_back_to_cg(system, monkeypatch):
+    """When plain refinement would not contract (a factor made deliberately poor here: every
+    solve scaled by 0.3, so each refinement removes only 30 % of the error), the solver switches
+    to CG preconditioned by the factor and still reaches spsolve's solution."""
+    p, a, b, ref = system
+    if not linsolve.have_pardiso():
+        pytest.skip("pypardiso not installed")
+    s = linsolve.make_solver(a, "pardiso-single", upper=p.pattern.upper())
+    exact = s._solve
+    monkeypatch.setattr(s, "_solve", lambda rhs: 0.3 * exact(rhs))
+    x = s.solve(b)
+    s.close()
+    assert np.abs(x - ref).max() < 1e-6
+    assert s.iterations >= 2
+
+
 def test_choice_with_measured_factor_size():
     """PARDISO's analysis of the real pattern replaces the worst-case estimate: double precision
     when the factors are small, single precision (half the memory) up to the budget, multigrid
