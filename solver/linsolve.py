@@ -47,6 +47,9 @@ DIRECT_MAX_BYTES = 2.0e9
 DOUBLE_FACTOR_MAX_BYTES = 1.5e9
 REFINE_CORRECTION_K = 1e-6  # refinement stops once a correction is this small (K, for step solves)
 MAX_REFINEMENTS = 6
+# A single-precision factorization (about 20 s at 1M nodes, against 6 s for a multigrid set-up)
+# repays itself after about 18 steps (0.45 s against 1.2 s per step, measured): fewer, multigrid
+SINGLE_MIN_STEPS = 20
 ANALYSIS_MAX_NODES = 4_000_000  # beyond this even the analysis takes long; multigrid
 ADAPTIVE_DIRECT_NODE_LIMIT = 60_000  # adaptive runs factor one matrix per step size
 
@@ -107,13 +110,14 @@ def _available_memory() -> int:
 
 def choose_method(n: int, requested: str = "auto", adaptive: bool = False,
                   available_bytes: int | None = None, factor_bytes: float | None = None,
-                  matrices: int = 1) -> SolverChoice:
+                  matrices: int = 1, steps: int | None = None) -> SolverChoice:
     """Method name and a one-line reason for a problem of ``n`` nodes.
 
     ``factor_bytes``: the double-precision factor of one step matrix as PARDISO's analysis
     measured it (:func:`pardiso_factor_bytes`); without it a worst-case estimate from ``n``.
     ``matrices``: how many step matrices the run keeps factored at once (e.g. 2 for
-    Crank–Nicolson with backward-Euler start-up steps)."""
+    Crank–Nicolson with backward-Euler start-up steps). ``steps``: solves the run will make (None:
+    unknown or many); a single-precision factorization is only worth it for enough of them."""
     if requested not in ("auto", "direct", "multigrid", "pardiso", "pardiso-single", "superlu"):
         raise ValueError(f"unknown linear solver {requested!r}")
     pardiso, amg = have_pardiso(), have_pyamg()
@@ -146,6 +150,10 @@ def choose_method(n: int, requested: str = "auto", adaptive: bool = False,
         if pardiso and total <= min(budget, DOUBLE_FACTOR_MAX_BYTES):
             return SolverChoice("pardiso", f"{size}: sparse Cholesky (PARDISO) fits comfortably and is "
                                            "fastest per step")
+        few = steps is not None and steps < SINGLE_MIN_STEPS * max(1, matrices)
+        if pardiso and few and amg:
+            return SolverChoice("multigrid", f"{size}: only {steps} steps, too few to repay a factorization "
+                                             "this large; multigrid CG")
         if pardiso:
             return SolverChoice("pardiso-single", f"{size}: sparse Cholesky (PARDISO) in single precision "
                                                   "(half the memory), refined in double")

@@ -165,14 +165,16 @@ class Stepper:
         p = self.problem
         adaptive = self.adaptive and self.method == "full"
         if self.method == "reduced" or self.adaptive:
-            matrices = 1  # adaptive runs above a small size use multigrid anyway
+            matrices, steps = 1, None  # adaptive runs above a small size use multigrid anyway
         else:
             matrices = max(1, len({(round(s.dt, 12), s.theta) for s in self.steps if s.theta > 0.0}))
+            steps = len(self.steps)
         factor_bytes = None
         if needs_analysis(p.n_nodes, requested, adaptive, matrices):
             upper = p.pattern.upper() if p.pattern is not None and p._shares_pattern() else None
             factor_bytes = pardiso_factor_bytes(p.step_matrix(1.0, 1.0), upper)
-        return choose_method(p.n_nodes, requested, adaptive=adaptive, factor_bytes=factor_bytes, matrices=matrices)
+        return choose_method(p.n_nodes, requested, adaptive=adaptive, factor_bytes=factor_bytes, matrices=matrices,
+                             steps=steps)
 
     def _check_explicit_stability(self) -> None:
         """Refuse forward Euler above its critical step (ModelError naming run.step_s)."""

@@ -149,11 +149,38 @@ def test_choice_with_measured_factor_size():
                                   matrices=3).method == "multigrid"
     assert linsolve.choose_method(200_000, factor_bytes=0.3e9, available_bytes=avail, matrices=2).method == "pardiso"
     assert linsolve.choose_method(1_000_000, factor_bytes=10e9, available_bytes=avail).method == "multigrid"
+    # a short run does not repay a large single-precision factorization
+    short = linsolve.choose_method(1_000_000, factor_bytes=2.2e9, available_bytes=avail, steps=10)
+    assert short.method == "multigrid" and "10 steps" in short.reason
+    assert linsolve.choose_method(1_000_000, factor_bytes=2.2e9, available_bytes=avail,
+                                  steps=500).method == "pardiso-single"
     # the analysis is only worth running where the estimate alone would not pick double precision
     assert not linsolve.needs_analysis(20_000)
     assert linsolve.needs_analysis(1_000_000, available_bytes=avail)
     assert not linsolve.needs_analysis(1_000_000, requested="multigrid")
     assert not linsolve.needs_analysis(1_000_000, adaptive=True)
+
+
+def test_stepper_measures_the_factor_and_picks_single_precision(monkeypatch):
+    """The wiring end to end, with the limits shrunk to this small model's size: the worst-case
+    estimate rules out double precision, so the stepper asks PARDISO's analysis, picks single
+    precision refined in double, and the run matches SuperLU's at every output."""
+    if not linsolve.have_pardiso():
+        pytest.skip("pypardiso not installed")
+    p = _problem()
+    measured = linsolve.pardiso_factor_bytes(p.step_matrix(1.0, 1.0), p.pattern.upper())
+    monkeypatch.setattr(linsolve, "FACTOR_BYTES_AT_1M", 1e15)  # the estimate alone: far too big
+    monkeypatch.setattr(linsolve, "DOUBLE_FACTOR_MAX_BYTES", 0.5 * measured)
+    monkeypatch.setattr(linsolve, "DIRECT_MAX_BYTES", 10 * measured)
+    monkeypatch.setattr(linsolve, "SINGLE_MIN_STEPS", 1)  # this run has only a few dozen steps
+    st = Stepper(p)
+    assert st.choice.method == "pardiso-single" and "measured" in st.choice.reason
+    fields = np.array([ev.field.copy() for ev in st])
+    ref = np.array([ev.field.copy() for ev in Stepper(p, linear_solver="superlu")])
+    np.testing.assert_allclose(fields, ref, atol=1e-6, rtol=0)
+    # and beyond what even single precision may use: multigrid
+    monkeypatch.setattr(linsolve, "DIRECT_MAX_BYTES", 0.1 * measured)
+    assert Stepper(p).choice.method == "multigrid"
 
 
 def test_analysis_reports_the_factor_size(system):
