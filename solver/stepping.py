@@ -169,8 +169,9 @@ class Stepper:
         else:
             matrices = max(1, len({(round(s.dt, 12), s.theta) for s in self.steps if s.theta > 0.0}))
             steps = len(self.steps)
+        explicit = self.method == "full" and not self.adaptive and self.theta == 0.0  # diagonal solves only
         factor_bytes = None
-        if needs_analysis(p.n_nodes, requested, adaptive, matrices):
+        if not explicit and needs_analysis(p.n_nodes, requested, adaptive, matrices):
             upper = p.pattern.upper() if p.pattern is not None and p._shares_pattern() else None
             factor_bytes = pardiso_factor_bytes(p.step_matrix(1.0, 1.0), upper)
         return choose_method(p.n_nodes, requested, adaptive=adaptive, factor_bytes=factor_bytes, matrices=matrices,
