@@ -58,6 +58,19 @@ def _model(args):
     return parse_model(model_dict(cell, **run)), cell
 
 
+def _timed_mesh(args):
+    """The scaled model and its mesh, with the cell size, meshing time and node count in ``out``."""
+    from solver.mesh import build_mesh
+
+    model, cell = _model(args)
+    out = {"cell_mm": cell}
+    c = _clock()
+    mesh = build_mesh(model)
+    out["mesh"] = _since(c)
+    out["nodes"] = mesh.n_nodes
+    return model, mesh, out
+
+
 def matvec_seconds(a, repeat: int = 20) -> float:
     x = np.random.default_rng(1).random(a.shape[0])
     a @ x
@@ -69,17 +82,11 @@ def matvec_seconds(a, repeat: int = 20) -> float:
 
 # ---------------------------------------------------------------- ours
 def run_ours(args) -> dict:
-    from solver.mesh import build_mesh
     from solver.problem import build_problem
     from solver.results import RunRecorder
     from solver.stepping import Stepper
 
-    model, cell = _model(args)
-    out = {"cell_mm": cell}
-    c = _clock()
-    mesh = build_mesh(model)
-    out["mesh"] = _since(c)
-    out["nodes"] = mesh.n_nodes
+    model, mesh, out = _timed_mesh(args)
     c = _clock()
     problem = build_problem(model, mesh)
     out["assembly"] = _since(c)
@@ -184,16 +191,10 @@ def run_baseline(args) -> dict:
     import scipy.sparse as sp
     import scipy.sparse.linalg as spla
 
-    from solver.mesh import build_mesh
     from solver.problem import build_problem
     from solver.timegrid import output_times, plan_steps
 
-    model, cell = _model(args)
-    out = {"cell_mm": cell}
-    c = _clock()
-    mesh = build_mesh(model)
-    out["mesh"] = _since(c)
-    out["nodes"] = mesh.n_nodes
+    model, mesh, out = _timed_mesh(args)
     problem = build_problem(model, mesh)  # only for the load vectors and part node sets
     c = _clock()
     k, lumped, conv = skfem_matrices(problem)
