@@ -86,14 +86,13 @@ class RunStatus(QWidget):
         self.bar.setRange(0, 1000)
         self.bar.setValue(0)
         self.bar.setFormat("%p %")
-        self.detail.setText(describe)
-        self.detail.setToolTip(describe)
+        self.detail.setText(describe)  # the label's tooltip holds the whole text
 
     def progress(self, step: int, n_steps: int, time_s: float, elapsed_s: float) -> None:
         """Progress in the bar itself (the line beside it keeps the run's description): without a
         graphics card every repaint is composed through software OpenGL together with the 3D view,
-        and a wide label repainting every second cost the solver about three times the bar's share
-        (measured: 0.07 against 0.03 CPU-s per update)."""
+        and a wide label repainting cost the solver about twice the bar's share (measured: 0.07
+        against 0.03-0.04 CPU-s per update)."""
         self.bar.setRange(0, 1000)
         self.bar.setValue(int(1000 * step / max(1, n_steps)))
         left = remaining_seconds(step, n_steps, elapsed_s)
