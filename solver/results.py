@@ -8,7 +8,8 @@ import numpy as np
 from .mesh import MM
 
 PEAK_COLUMNS = ["part", "rated_c", "peak_c", "peak_time_s", "margin_k", "first_over_s",
-                "hotspot_x_mm", "hotspot_y_mm", "hotspot_z_mm", "status"]
+                "hotspot_x_mm", "hotspot_y_mm", "hotspot_z_mm", "status", "peak_error_k"]
+STATUSES = ("over", "at-risk", "ok", "unrated")
 
 
 @dataclass
@@ -21,19 +22,27 @@ class PeakRow:
     first_over_s: float | None
     hotspot_mm: tuple
     mean_over_time_c: float
+    peak_error_k: float | None = None  # estimated bound on |peak - converged peak|, K (None: not estimated)
 
     @property
     def status(self) -> str:
-        if self.rated_c is None:
+        """``over`` when even peak - error exceeds the rating, ``at-risk`` when the rating lies
+        within peak ± error, ``ok`` below the band, ``unrated`` without a rating."""
+        if self.rated_c is None or self.peak_c is None or np.isnan(self.peak_c):
             return "unrated"
-        return "over" if self.first_over_s is not None else "ok"
+        err = self.peak_error_k if self.peak_error_k is not None and np.isfinite(self.peak_error_k) else 0.0
+        if self.peak_c - err > self.rated_c:
+            return "over"
+        if err > 0 and self.peak_c + err >= self.rated_c:
+            return "at-risk"
+        return "ok"
 
     def as_csv_row(self) -> list:
         def num(v, fmt="{:.3f}"):
             return "" if v is None or (isinstance(v, float) and np.isnan(v)) else fmt.format(v)
         return [self.part, num(self.rated_c, "{:.12g}"), num(self.peak_c), num(self.peak_time_s, "{:.12g}"),
                 num(self.margin_k), num(self.first_over_s, "{:.12g}"),
-                *(num(c) for c in self.hotspot_mm), self.status]
+                *(num(c) for c in self.hotspot_mm), self.status, num(self.peak_error_k, "{:.2f}")]
 
 
 @dataclass
@@ -137,9 +146,9 @@ class RunRecorder:
 
 
 def sort_for_review(rows: list[PeakRow]) -> list[PeakRow]:
-    """Parts over their rating first (least margin first), then rated by margin, then unrated by peak."""
+    """Parts over their rating first (least margin first), then at risk, then rated by margin, then unrated by peak."""
     def key(r: PeakRow):
-        group = {"over": 0, "ok": 1, "unrated": 2}[r.status]
+        group = {"over": 0, "at-risk": 1, "ok": 2, "unrated": 3}[r.status]
         sub = r.margin_k if r.margin_k is not None else -r.peak_c
         return (group, sub)
     return sorted(rows, key=key)

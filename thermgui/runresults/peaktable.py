@@ -12,7 +12,8 @@ from .store import peaks_tsv
 
 HEADINGS = {"part": "Part", "rated_c": "Rated °C", "peak_c": "Peak °C", "peak_time_s": "Peak at s",
             "margin_k": "Margin K", "first_over_s": "First over s", "hotspot_x_mm": "Hot spot x mm",
-            "hotspot_y_mm": "y mm", "hotspot_z_mm": "z mm", "status": "Status"}
+            "hotspot_y_mm": "y mm", "hotspot_z_mm": "z mm", "status": "Status",
+            "peak_error_k": "± K"}
 OVER_TEXT = QColor("#b0102f")
 OVER_FILL = QColor("#fde3e7")
 STATUS_COL = PEAK_COLUMNS.index("status")
