@@ -9,6 +9,7 @@ import sys
 import time
 from pathlib import Path
 
+from .accuracy import format_record
 from .errors import Cancelled, ModelError, SolveError
 from .model import load_model
 from .results import sort_for_review
@@ -28,10 +29,14 @@ class ProgressBar:
         self._last = 0.0
         self._tty = bool(getattr(self.stream, "isatty", lambda: False)())
         self._last_decile = -1
+        self._level = 0
 
     def update(self, ev, force: bool = False) -> None:
         if not self.enabled:
             return
+        if getattr(ev, "level", 0) != self._level:  # a new mesh level starts its own bar
+            self._level = ev.level
+            self._last_decile = -1
         frac = ev.fraction
         if not self._tty:  # a log file: one line per tenth of the run
             decile = int(frac * 10 + 1e-9)
@@ -46,7 +51,7 @@ class ProgressBar:
         eta = ev.elapsed_s * (1 - frac) / frac if frac > 0 else float("nan")
         hot = float(ev.part_max.max()) if len(ev.part_max) else float("nan")
         lead, tail = ("\r", "") if self._tty else ("", "\n")
-        self.stream.write(f"{lead}[{'#' * filled}{'.' * (self.width - filled)}] {100 * frac:5.1f}%  "
+        self.stream.write(f"{lead}mesh {self._level} [{'#' * filled}{'.' * (self.width - filled)}] {100 * frac:5.1f}%  "
                           f"t = {ev.time_s:9.2f} s  hottest {hot:7.2f} °C  left ~{eta:5.0f} s {tail}")
         self.stream.flush()
 
@@ -57,14 +62,14 @@ class ProgressBar:
 
 
 def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str = "auto",
-                    stream=None, err=None, method: str | None = None) -> int:
+                    stream=None, err=None, method: str | None = None, tolerance_k="model") -> int:
     """Run a model file and write results; returns the exit status (streams default to stdout/stderr)."""
     stream = stream if stream is not None else sys.stdout
     err = err if err is not None else sys.stderr
     t0 = time.perf_counter()
     try:
         model = load_model(model_path)
-        session = RunSession(model, out_dir, linear_solver=linear_solver, method=method)
+        session = RunSession(model, out_dir, linear_solver=linear_solver, method=method, tolerance_k=tolerance_k)
     except ModelError as e:
         err.write(e.with_source(e.source or str(model_path)).describe() + "\n")
         return 2
@@ -75,8 +80,13 @@ def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str
     for w in session.warnings:
         say(f"warning: {w}")
     bar = ProgressBar(err, enabled=not quiet)
+    level = 0
     try:
         for ev in session.events():
+            if ev.level != level:
+                level = ev.level
+                bar.finish()
+                say(f"{model_path}: {session.describe()}")
             bar.update(ev, force=ev.step == ev.n_steps)
     except (SolveError, Cancelled) as e:
         bar.finish()
@@ -88,8 +98,13 @@ def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str
         return 1
     bar.finish()
     rows = session.finish()
+    for w in session.accuracy_warnings():
+        err.write(f"warning: {w}\n")
     if not quiet:
         stream.write(format_summary(rows) + "\n")
+        record = session.accuracy_record()
+        if record:
+            stream.write(format_record(record) + "\n")
         if session.stepper.reduced_info is not None and session.stepper.method == "reduced":
             stream.write(session.stepper.reduced_info.describe() + "\n")
         stream.write(f"energy balance: largest step residual {session.recorder.relative_energy_residual:.1e} of "
@@ -100,14 +115,16 @@ def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str
 
 def format_summary(rows) -> str:
     """Plain-text table, parts over their rating first."""
-    head = f"{'part':<24} {'rated °C':>9} {'peak °C':>9} {'at s':>9} {'margin K':>9} {'over at s':>10}  status"
+    head = (f"{'part':<24} {'rated °C':>9} {'peak °C':>9} {'± K':>6} {'at s':>9} {'margin K':>9} "
+            f"{'over at s':>10}  status")
     lines = [head, "-" * len(head)]
     for r in sort_for_review(rows):
         def f(v, w, fmt):
             return f"{'' if v is None else fmt.format(v):>{w}}"
         lines.append(f"{r.part[:24]:<24} {f(r.rated_c, 9, '{:.1f}')} {f(r.peak_c, 9, '{:.2f}')} "
+                     f"{f(r.peak_error_k, 6, '{:.2f}')} "
                      f"{f(r.peak_time_s, 9, '{:.1f}')} {f(r.margin_k, 9, '{:+.2f}')} {f(r.first_over_s, 10, '{:.1f}')}"
-                     f"  {r.status.upper() if r.status == 'over' else r.status}")
+                     f"  {r.status.upper() if r.status in ('over', 'at-risk') else r.status}")
     return "\n".join(lines)
 
 
@@ -117,6 +134,9 @@ def add_solve_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--quiet", action="store_true", help="no progress bar or summary")
     p.add_argument("--linear-solver", default="auto", choices=["auto", "direct", "multigrid"],
                    help="linear solver for implicit steps (default: chosen by size)")
+    p.add_argument("--tolerance", type=_tolerance, default="model", metavar="K",
+                   help="override mesh.tolerance_k: refine until each rated peak's estimated error is below K "
+                        "kelvin, or 'none' to keep the file's mesh (its error is still estimated)")
     p.add_argument("--method", choices=["full", "reduced"], default=None,
                    help="override run.method: step the full system, or a reduced basis within run.tolerance_k")
 
@@ -125,4 +145,20 @@ def main(argv=None) -> int:
     parser = argparse.ArgumentParser(prog="python -m solver", description="Solve an enclosure model headless.")
     add_solve_arguments(parser)
     args = parser.parse_args(argv)
-    return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver, method=args.method)
+    return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver, method=args.method,
+                           tolerance_k=args.tolerance)
+
+
+def _tolerance(text: str):
+    """--tolerance value: a positive number of kelvin, or none/null ("model": the file's own)."""
+    if text == "model":
+        return text
+    if text.strip().lower() in ("none", "null"):
+        return None
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"--tolerance must be a positive number of kelvin or 'none' (got {text!r})")
+    if not (v > 0 and v < float("inf")):
+        raise argparse.ArgumentTypeError(f"--tolerance must be a positive number of kelvin or 'none' (got {text!r})")
+    return v

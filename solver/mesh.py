@@ -154,9 +154,11 @@ def estimate_nodes(model, lines_mm=None) -> int:
     return int(min(total, grid_total))
 
 
-def build_mesh(model, memory_limit_bytes: int | None = None) -> Mesh:
-    """Mesh a validated model. Raises ModelError for a mesh that would not fit in memory."""
-    lines_mm = plan_lines(model)
+def build_mesh(model, memory_limit_bytes: int | None = None, lines_mm=None) -> Mesh:
+    """Mesh a validated model on its planned planes, or on ``lines_mm`` (three arrays of plane
+    positions in mm that include every part face, e.g. from :mod:`solver.refinement`).
+    Raises ModelError for a mesh that would not fit in memory."""
+    lines_mm = plan_lines(model) if lines_mm is None else tuple(np.asarray(l, dtype=float) for l in lines_mm)
     est_nodes = estimate_nodes(model, lines_mm)
     est_bytes = est_nodes * BYTES_PER_NODE_ESTIMATE
     limit = memory_limit_bytes if memory_limit_bytes is not None else int(0.8 * available_memory_bytes())

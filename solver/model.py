@@ -139,6 +139,12 @@ class Probe(_Strict):
 class MeshSettings(_Strict):
     cell_mm: Positive = 2.0
     min_layers: Annotated[int, Field(ge=1, le=50)] = 2
+    # accuracy control (solver.accuracy): refine until every rated part's estimated peak error is
+    # below tolerance_k (K); null = keep this mesh as given and only estimate the error
+    tolerance_k: Optional[Annotated[float, Field(gt=0, le=1000)]] = 1.0
+    max_nodes: Annotated[int, Field(ge=1000, le=50_000_000)] = 2_000_000  # refinement budget: nodes
+    max_levels: Annotated[int, Field(ge=2, le=20)] = 8  # refinement budget: meshes solved
+    time_limit_s: Optional[Positive] = 900.0  # refinement budget: wall time before the last level
 
 
 class RunSettings(_Strict):
@@ -191,8 +197,14 @@ class Model(_Strict):
         raise KeyError(name)
 
     def to_json_dict(self) -> dict:
-        """Plain JSON-ready dict (for saving); omits unset optional values."""
-        return self.model_dump(mode="json", exclude_none=True)
+        """Plain JSON-ready dict (for saving); omits unset optional values (an explicit
+        ``mesh.tolerance_k: null``, meaning "keep the mesh as given", is kept)."""
+        d = self.model_dump(mode="json", exclude_none=True)
+        if self.mesh.tolerance_k is None:
+            d.setdefault("mesh", {})["tolerance_k"] = None
+        if self.mesh.time_limit_s is None:
+            d.setdefault("mesh", {})["time_limit_s"] = None
+        return d
 
 
 # ---------------------------------------------------------------- errors

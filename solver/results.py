@@ -56,6 +56,7 @@ class RunRecorder:
     problem: object
     field_sink: object = None
     keep_fields: bool = True
+    peak_field_parts: tuple = ()  # part indices whose field at their peak is kept (for mesh refinement)
     times: list = field(default_factory=list)
     part_max_history: list = field(default_factory=list)
     part_mean_history: list = field(default_factory=list)
@@ -75,11 +76,22 @@ class RunRecorder:
         self.mean_integral = np.zeros(n)
         self._prev = None  # (time, part_max, part_mean)
         self.steps_seen = 0
+        self.peak_fields: dict = {}  # part index -> float32 field at that part's peak
+        self._goal_mask = None
+        if len(self.peak_field_parts):
+            self._goal_mask = np.zeros(n, dtype=bool)
+            self._goal_mask[list(self.peak_field_parts)] = True
 
     def add(self, ev) -> None:
         p = self.problem
         pm = ev.part_max
         better = pm > self.peak
+        if self._goal_mask is not None:
+            wanted = better & self._goal_mask
+            if wanted.any():
+                snapshot = np.asarray(ev.field, dtype=np.float32).copy()  # one copy shared by the parts
+                for i in np.nonzero(wanted)[0]:
+                    self.peak_fields[int(i)] = snapshot
         if better.any():
             for i in np.nonzero(better)[0]:
                 if p.part_nodes.counts[i] == 0:

@@ -3,37 +3,83 @@
 Both the command line and the app drive a :class:`RunSession`::
 
     session = RunSession(model, out_dir)      # meshes, assembles, checks stability (ModelError)
-    for event in session.events():            # StepEvent after every step
+    for event in session.events():            # StepEvent after every step, of every mesh level
         ...                                   # progress, live view; stop iterating to cancel
     rows = session.finish()                   # writes peaks.csv, history.csv, run.json, field.pvd
+
+With ``mesh.tolerance_k`` (default 1 K) the run is a ladder of meshes (:mod:`solver.accuracy`):
+each level is solved in full and streamed, ``event.level`` tells which, and ``session.problem``
+is the level being solved; the last level streamed is the one reported, with an error bound on
+every peak. With ``mesh.tolerance_k: null`` the file's mesh is reported, and two finer meshes
+are solved only to bound its error (then the file's mesh is solved again, as the last level).
 """
 from __future__ import annotations
 
+import dataclasses
 import time
 from pathlib import Path
 from typing import Callable, Iterator
 
+import numpy as np
+
+from .accuracy import MIN_LEVELS_TO_ACCEPT, AccuracySettings, Ladder, time_error_bound
+from .mesh import BYTES_PER_NODE_ESTIMATE, available_memory_bytes, build_mesh, estimate_nodes
 from .meshreport import resolution_report
 from .problem import build_problem
+from .reduced import DEFAULT_TOLERANCE_K as REDUCED_DEFAULT_TOLERANCE_K
+from .refinement import influence_fields, refined_lines
 from .results import PeakRow, RunRecorder
 from .stepping import StepEvent, Stepper
 from .writers import FieldSeriesWriter, write_history_csv, write_peaks_csv, write_run_info
 
+KEEP_IN_MEMORY_BYTES = 5e8  # frames of an unstreamed level kept in memory up to this size
+DUAL_WEIGHTED = True  # refine by goal-oriented (influence-weighted) indicators
+BASIS_SHARE = 0.1  # reduced-basis tolerance as a share of mesh.tolerance_k ...
+MIN_BASIS_TOLERANCE_K = 0.005  # ... but not below this
+
+
+def _dual_method(method: str) -> str:
+    """Linear solver for the influence fields: the run's own choice, in double precision."""
+    return {"pardiso-single": "pardiso"}.get(method, method)
+
 
 class RunSession:
-    """Prepare, step and record one run. ``out_dir=None`` keeps fields in memory only."""
+    """Prepare, step and record one run. ``out_dir=None`` keeps fields in memory only.
+
+    ``tolerance_k`` overrides ``mesh.tolerance_k`` ("model" = use the file's; None = keep the mesh
+    as given and only estimate its error; ``False`` = no estimate at all, a single solve).
+    """
 
     def __init__(self, model, out_dir=None, cancel: Callable[[], bool] | None = None,
-                 linear_solver: str = "auto", keep_fields: bool | None = None, method: str | None = None):
+                 linear_solver: str = "auto", keep_fields: bool | None = None, method: str | None = None,
+                 tolerance_k="model"):
         self.t_start = time.perf_counter()
         self.model = model
+        self.cancel, self.linear_solver, self.method = cancel, linear_solver, method
+        self.estimate = tolerance_k is not False
+        self.settings = AccuracySettings.from_model(model, None if tolerance_k is False else tolerance_k)
+        self.ladder = Ladder(model, self.settings)
         self.problem = build_problem(model)
-        self.stepper = Stepper(self.problem, cancel=cancel, linear_solver=linear_solver, method=method)
+        self.stepper = self._stepper(self.problem)
+        self.level = 0
         self.out_dir = Path(out_dir) if out_dir is not None else None
         self._series = None
         self.recorder = None
         self.keep_fields = keep_fields if keep_fields is not None else self.out_dir is None
         self.last_event: StepEvent | None = None
+        self.accuracy_notes: list[str] = []
+        self._reported_level = None
+        self._finished_all = False
+        self._streamed_final = False
+
+    def _stepper(self, problem, **kw) -> Stepper:
+        st = Stepper(problem, cancel=self.cancel, linear_solver=self.linear_solver, method=self.method, **kw)
+        tol = self.settings.tolerance_k
+        if st.method == "reduced" and tol is not None and self.estimate:
+            # the basis error is a small share of the peak tolerance, so the mesh error dominates
+            own = st.tolerance_k if st.tolerance_k is not None else REDUCED_DEFAULT_TOLERANCE_K
+            st.tolerance_k = max(MIN_BASIS_TOLERANCE_K, min(own, BASIS_SHARE * tol))
+        return st
 
     @property
     def warnings(self) -> list[str]:
@@ -46,33 +92,178 @@ class RunSession:
     def describe(self) -> str:
         p, s = self.problem, self.stepper
         steps = (f"{len(s.outputs):,} output times" if s.method == "reduced" else f"{s.n_steps:,} steps")
-        return (f"{p.n_nodes:,} nodes, {p.mesh.n_tets:,} tetrahedra, {steps} ({s.scheme}); "
+        level = f"mesh level {self.level}: " if self.estimate else ""
+        return (f"{level}{p.n_nodes:,} nodes, {p.mesh.n_tets:,} tetrahedra, {steps} ({s.scheme}); "
                 f"linear solver: {s.choice.method} ({s.choice.reason})")
 
-    def events(self) -> Iterator[StepEvent]:
-        """Run the steps, recording each; yields every event (the caller may stop early)."""
+    # ------------------------------------------------------------------ the ladder
+    def _solver_error(self, stepper) -> float:
+        info = getattr(stepper, "reduced_info", None)
+        if stepper.method == "reduced" and info is not None and np.isfinite(info.error_estimate_k):
+            return float(info.error_estimate_k)
+        if stepper.adaptive and stepper.method == "full":
+            return float(stepper.tolerance_k)
+        return 0.0
+
+    def _solve_level(self, stream_fields: bool) -> Iterator[StepEvent]:
         sink = None
-        if self.out_dir is not None:
+        if stream_fields and self.out_dir is not None:
             self.out_dir.mkdir(parents=True, exist_ok=True)
             self._series = FieldSeriesWriter(self.out_dir, self.problem)
             sink = self._series
-        self.recorder = RunRecorder(self.problem, field_sink=sink, keep_fields=self.keep_fields)
+        keep = self.keep_fields or (self.out_dir is not None and not stream_fields and self._fits_in_memory())
+        self.recorder = RunRecorder(self.problem, field_sink=sink, keep_fields=keep,
+                                    peak_field_parts=tuple(self.ladder.goal) if self.estimate else ())
+        self._streamed_final = sink is not None
+        t0 = time.perf_counter()
         for ev in self.stepper:
+            ev.level = self.level
             self.recorder.add(ev)
             self.last_event = ev
             yield ev
+        self._level_wall = time.perf_counter() - t0
+
+    def _fits_in_memory(self) -> bool:
+        frames = len(self.stepper.outputs)
+        return frames * self.problem.n_nodes * 4 <= KEEP_IN_MEMORY_BYTES
+
+    def _time_check(self) -> None:
+        """Step-halving twin of a fixed-step full run on the first mesh (time error per part)."""
+        st = self.stepper
+        if st.method != "full" or st.adaptive:
+            return
+        run = self.model.run
+        half = self.model.model_copy(deep=True)
+        half.run.step_s = float(run.step_s) / 2.0
+        twin_problem = dataclasses.replace(self.problem, model=half)
+        twin = Stepper(twin_problem, cancel=self.cancel, linear_solver=self.linear_solver, method="full")
+        peak = np.full(len(self.model.parts), -np.inf)
+        for ev in twin:
+            np.maximum(peak, ev.part_max, out=peak)
+        self.ladder.time_error = time_error_bound(self.recorder.peak, peak, run.scheme)
+
+    def _next_lines(self):
+        rec = self.recorder
+        goal = [i for i in self.ladder.goal if i in rec.peak_fields]
+        fields = [rec.peak_fields[i] for i in goal]
+        if not fields:
+            fields = [np.asarray(self.last_event.field)]
+            hot = [int(np.argmax(fields[0]))]
+        else:
+            hot = [self.problem.part_nodes.argmax(f, i) for f, i in zip(fields, goal)]
+        duals = None
+        if DUAL_WEIGHTED:
+            z = influence_fields(self.problem, hot, float(self.model.run.duration_s),
+                                 _dual_method(self.stepper.choice.method))
+            duals = [z[:, j] for j in range(z.shape[1])]
+        lines, _ = refined_lines(self.model, self.problem.mesh, fields, duals, hot)
+        return lines
+
+    def events(self) -> Iterator[StepEvent]:
+        """Run every level's steps, recording each; yields every event (the caller may stop early)."""
+        if not self.estimate:
+            yield from self._solve_level(True)
+            self._reported_level = 0
+            self._finished_all = True
+            return
+        s = self.settings
+        first_problem = self.problem
+        while True:
+            k = self.level
+            final_guess = s.refine and (k + 1 >= MIN_LEVELS_TO_ACCEPT or k + 1 >= s.max_levels)
+            yield from self._solve_level(final_guess)
+            solver_err = self._solver_error(self.stepper)
+            if k == 0:
+                self._time_check()
+            self.ladder.add(self.problem, self.recorder.peak.copy(), self._level_wall, self.stepper.method, solver_err)
+            if not s.refine and k >= 2:
+                break
+            lines = self._next_lines()
+            est = estimate_nodes(self.model, lines)
+            memory_ok = est * BYTES_PER_NODE_ESTIMATE <= 0.7 * available_memory_bytes()
+            wall = time.perf_counter() - self.t_start
+            if s.refine and self.ladder.done(solver_err, wall, est, memory_ok):
+                break
+            if not s.refine and (est > s.max_nodes or not memory_ok):
+                self.ladder.stop_reason = f"the estimate's next mesh (about {est:,} nodes) is over the budget"
+                break
+            self.problem = build_problem(self.model, build_mesh(self.model, lines_mm=lines))
+            self.stepper = self._stepper(self.problem)
+            self.level += 1
+        if not s.refine:  # report the file's mesh: solve it again as the last level streamed
+            self._null_bounds = self._coarse_bounds()
+            self.problem = first_problem
+            self.stepper = self._stepper(first_problem)
+            self.level = 0
+            yield from self._solve_level(True)
+            self._reported_level = 0
+        else:
+            self._reported_level = self.level
+        self._finished_all = True
+
+    def _coarse_bounds(self) -> np.ndarray:
+        """Bound for the first (coarsest) level: its distance to the finest plus the finest's bound."""
+        lad = self.ladder
+        fine_bound = lad.total_bound(lad.levels[-1].time_error_k)
+        return np.abs(lad.peaks[-1] - lad.peaks[0]) + fine_bound
 
     @property
     def complete(self) -> bool:
-        return self.last_event is not None and self.last_event.step == self.last_event.n_steps
+        return (self._finished_all and self.last_event is not None
+                and self.last_event.step == self.last_event.n_steps)
+
+    def peak_errors(self) -> np.ndarray | None:
+        """Per-part error bound (K) of the reported peaks, or None when not estimated."""
+        if not self.estimate or not self.ladder.levels:
+            return None
+        if not self.settings.refine:
+            return getattr(self, "_null_bounds", None)
+        lad = self.ladder
+        return lad.total_bound(lad.levels[-1].time_error_k)
+
+    def accuracy_record(self) -> dict | None:
+        if not self.estimate:
+            return None
+        rec = self.ladder.record()
+        rec["reported_level"] = self._reported_level
+        err = self.peak_errors()
+        if err is not None:
+            rec["reported_error_k"] = {p.name: (float(err[i]) if np.isfinite(err[i]) else None)
+                                       for i, p in enumerate(self.model.parts)}
+        return rec
+
+    def accuracy_warnings(self) -> list[str]:
+        """Sentences for the user when the tolerance was not reached."""
+        lad = self.ladder
+        if not self.estimate or not self.settings.refine or lad.converged or not lad.levels:
+            return []
+        left = ", ".join(f"{p} (± {v:.2f} K)" if np.isfinite(v) else f"{p} (error unknown)"
+                         for p, v in lad.unconverged)
+        return [f"the mesh did not reach mesh.tolerance_k = {self.settings.tolerance_k:g} K: {lad.stop_reason}"
+                + (f"; parts still above it: {left}" if left else "")]
 
     def finish(self) -> list[PeakRow]:
         """Peak rows; with an output folder also writes every result file."""
         rows = self.recorder.peak_rows()
+        err = self.peak_errors()
+        if err is not None:
+            for i, r in enumerate(rows):
+                r.peak_error_k = float(err[i]) if np.isfinite(err[i]) else None
         if self.out_dir is not None:
-            self._series.close()
+            if self._streamed_final:
+                self._series.close()
+            else:
+                self._write_kept_fields()
             write_peaks_csv(self.out_dir / "peaks.csv", rows)
             write_history_csv(self.out_dir / "history.csv", self.recorder)
             write_run_info(self.out_dir / "run.json", self.problem, self.recorder, self.stepper,
-                           time.perf_counter() - self.t_start)
+                           time.perf_counter() - self.t_start, accuracy=self.accuracy_record())
         return rows
+
+    def _write_kept_fields(self) -> None:
+        """Fields of a level that was not streamed (kept in memory), written now."""
+        self.out_dir.mkdir(parents=True, exist_ok=True)
+        writer = FieldSeriesWriter(self.out_dir, self.problem)
+        for t, f in zip(self.recorder.times, self.recorder.fields):
+            writer(t, f)
+        writer.close()

@@ -48,6 +48,7 @@ class StepEvent:
     stored_w: float  # rate of change of stored heat over the step
     energy_residual_w: float  # in − stored − out over the step, W (round-off for a direct solve)
     elapsed_s: float
+    level: int = 0  # accuracy level (mesh) this event belongs to, set by solver.session
 
     @property
     def fraction(self) -> float:

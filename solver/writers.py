@@ -59,7 +59,7 @@ class FieldSeriesWriter:
         write_pvd(self.out_dir / SERIES_NAME, self.entries)
 
 
-def write_run_info(path, problem, recorder: RunRecorder, stepper, wall_s: float) -> None:
+def write_run_info(path, problem, recorder: RunRecorder, stepper, wall_s: float, accuracy: dict | None = None) -> None:
     """run.json: what was solved, how, and the energy balance (for the record and the app)."""
     info = {
         "format": "thermgui-run", "version": 1,
@@ -76,6 +76,7 @@ def write_run_info(path, problem, recorder: RunRecorder, stepper, wall_s: float)
         "warnings": list(problem.warnings),
         "units": {"length": "mm", "temperature": "degC", "time": "s"},
         "wall_time_s": wall_s,
+        "accuracy": accuracy,
         "field_series": SERIES_NAME,
         "part_names": [p.name for p in problem.model.parts],
     }

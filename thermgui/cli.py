@@ -38,7 +38,8 @@ def main(argv=None) -> int:
     args = build_parser().parse_args(argv)
     if args.command == "solve":
         try:
-            return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver, method=args.method)
+            return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver, method=args.method,
+                                   tolerance_k=args.tolerance)
         except KeyboardInterrupt:
             sys.stderr.write("interrupted\n")
             return 1

@@ -71,8 +71,13 @@ class RunWorker(QObject):
             return
         self.prepared.emit(session, extra)
         last_preview = last_progress = time.perf_counter()
+        level = 0
         try:
             for ev in session.events():
+                if ev.level != level:  # a finer mesh of the accuracy ladder: the view starts again on it
+                    level = ev.level
+                    extra = self.prepare(session) if self.prepare is not None else None
+                    self.prepared.emit(session, extra)
                 now = time.perf_counter()
                 if ev.is_output:
                     self.output.emit(ev.time_s, np.array(ev.field, dtype=np.float32), ev.part_max.copy())
