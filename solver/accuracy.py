@@ -14,7 +14,9 @@ discretization in CFD applications", J. Fluids Eng. 130(7), 078001:
     E   = Fs · |ε21| / (r21^p − 1),  Fs = 1.25
 
 p is clipped to [0.5, 2] (2 is the order of nodal values of linear elements on a smooth
-solution; a lower observed order widens the band). With only two levels, p = 1 and Fs = 3
+solution; a lower observed order widens the band); when the last change is not smaller than
+the one before (allowing for unequal ratios), the levels are not yet in the asymptotic range
+and p = 0.5 is used, which keeps the band wide and the refinement going. With only two levels, p = 1 and Fs = 3
 (Roache's recommendation for two-grid studies). When the changes alternate in sign the
 bound is Fs · max(|ε21|, |ε32|). The time (or reduced-basis) error is added: the reduced
 basis's own estimate, or for fixed steps a step-halving check on the first mesh
@@ -132,7 +134,10 @@ def mesh_error_bound(peaks: list[np.ndarray], nodes: list[int]):
             bound[i] = FS_THREE * max(abs(e21[i]), abs(e32[i]))
             orders[i] = np.nan
             continue
-        p = observed_order(float(e21[i]), float(e32[i]), r21, r32)
+        if abs(e21[i]) > abs(e32[i]) * (r21 / r32) ** P_MIN:
+            p = P_MIN  # the changes are not shrinking yet: not in the asymptotic range
+        else:
+            p = observed_order(float(e21[i]), float(e32[i]), r21, r32)
         orders[i] = p
         fine = abs(e21[i]) / (r21**p - 1.0)
         # the same order applied one level down: the medium level's error, less the last change

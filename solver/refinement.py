@@ -32,6 +32,7 @@ from .mesh import MM, Mesh
 BULK_FRACTION = 1.0  # Dörfler's θ: share of the total indicator the marked intervals must cover
 MAX_GROWTH = 1.0  # marked slabs may add at most this share of the current cell count
 MIN_WIDTH_MM = 1e-3  # never bisect below a micrometre
+HOT_CELLS_ACROSS = 8  # cells beside a hot spot are halved until this many would span its part
 TIE = 0.02  # indicators within 2 % of the last one marked are marked too
 
 
@@ -186,8 +187,16 @@ def bisect_lines(lines_mm: np.ndarray, mask: np.ndarray) -> np.ndarray:
     return grade(np.sort(np.concatenate([lines_mm, mids])))
 
 
-def refined_lines(model, mesh: Mesh, fields, duals=None, hot_nodes=(), bulk: float = BULK_FRACTION,
-                  growth: float = MAX_GROWTH):
+def _part_extent_mm(mesh: Mesh, part: int, ax: int) -> float:
+    """Extent of the cells a part holds along ``ax`` (mm)."""
+    idx = np.nonzero((mesh.cell_part == part).any(axis=tuple(a for a in range(3) if a != ax)))[0]
+    if not len(idx):
+        return np.inf
+    return float(mesh.lines[ax][idx[-1] + 1] - mesh.lines[ax][idx[0]]) / MM
+
+
+def refined_lines(model, mesh: Mesh, fields, duals=None, hot_nodes=(), hot_parts=None,
+                  bulk: float = BULK_FRACTION, growth: float = MAX_GROWTH):
     """New planes (mm, per axis) refined where the indicators of ``fields`` are largest.
 
     ``fields`` is a list of node temperature arrays (°C), for example each rated part's field
@@ -196,7 +205,8 @@ def refined_lines(model, mesh: Mesh, fields, duals=None, hot_nodes=(), bulk: flo
     of 1 and summed, so every peak has an equal say and no region is starved (a goal-oriented
     indicator alone can stall on a coarse mesh that misses the peak's location). The intervals
     on both sides of each node in ``hot_nodes`` are always bisected: the peak must be resolved
-    where it is.
+    where it is, until they are narrower than 1/HOT_CELLS_ACROSS of that part's extent
+    (``hot_parts`` gives the part of each hot node).
     """
     k_cell = cell_conductivity(model, mesh)
     total = [np.zeros(len(l) - 1) for l in mesh.lines]
@@ -209,11 +219,15 @@ def refined_lines(model, mesh: Mesh, fields, duals=None, hot_nodes=(), bulk: flo
                     total[a] += ind[a] / s
     widths_mm = [np.diff(l) / MM for l in mesh.lines]
     masks = mark_intervals(total, slab_cells(mesh), bulk, growth, widths_mm)
-    if len(hot_nodes):
-        gi = np.argwhere(np.isin(mesh.grid_node_id, np.asarray(hot_nodes, dtype=np.int64)))  # (H, 3)
+    for node, part in zip(hot_nodes, hot_parts if hot_parts is not None else [None] * len(hot_nodes)):
+        gi = np.argwhere(mesh.grid_node_id == int(node))
+        if not len(gi):
+            continue
         for a in range(3):
-            for i in gi[:, a]:
-                for j in (i - 1, i):  # the intervals below and above the node's plane
-                    if 0 <= j < len(masks[a]) and widths_mm[a][j] > 2 * MIN_WIDTH_MM:
-                        masks[a][j] = True
+            i = int(gi[0, a])
+            extent = _part_extent_mm(mesh, part, a) if part is not None else np.inf
+            for j in (i - 1, i):  # the intervals below and above the node's plane
+                if (0 <= j < len(masks[a]) and widths_mm[a][j] > 2 * MIN_WIDTH_MM
+                        and widths_mm[a][j] > extent / HOT_CELLS_ACROSS):
+                    masks[a][j] = True
     return tuple(bisect_lines(mesh.lines[a] / MM, masks[a]) for a in range(3)), masks

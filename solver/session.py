@@ -149,6 +149,7 @@ class RunSession:
         if not fields:
             fields = [np.asarray(self.last_event.field)]
             hot = [int(np.argmax(fields[0]))]
+            goal = []
         else:
             hot = [self.problem.part_nodes.argmax(f, i) for f, i in zip(fields, goal)]
         duals = None
@@ -156,7 +157,7 @@ class RunSession:
             z = influence_fields(self.problem, hot, float(self.model.run.duration_s),
                                  _dual_method(self.stepper.choice.method))
             duals = [z[:, j] for j in range(z.shape[1])]
-        lines, _ = refined_lines(self.model, self.problem.mesh, fields, duals, hot)
+        lines, _ = refined_lines(self.model, self.problem.mesh, fields, duals, hot, goal or None)
         return lines
 
     def events(self) -> Iterator[StepEvent]:

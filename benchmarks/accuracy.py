@@ -1,0 +1,152 @@
+"""Accuracy benchmark: the default run (refinement to mesh.tolerance_k) against reference ladders.
+
+For each model it runs, in one process, one after the other:
+
+1. the file's mesh as given, no estimate (what the first wave reported);
+2. the default run (mesh.tolerance_k from the file, default 1 K): nodes, wall time, peaks ± bound;
+3. a reference: the same ladder driven to a tighter tolerance (``--reference-tolerance``, default
+   0.25 K) with a large node budget;
+4. optionally the uniform ladder (every interval split R ways along x, y and z, same reduced
+   method), the plain route a user would take by hand (``--uniform 1,2,3``).
+
+It prints, per rated part, each route's peak and its distance to the reference, and the wall
+times as ratios to the uniform route measured in the same run. Nothing asserts; see
+benchmarks/README.md for recorded results. Usage:
+
+    python3 benchmarks/accuracy.py                         # relay box and the three samples
+    python3 benchmarks/accuracy.py --models relay --uniform 1,2,3
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+import solver.mesh as mesh_module  # noqa: E402
+from solver.model import load_model  # noqa: E402
+from solver.session import RunSession  # noqa: E402
+
+MODELS = {
+    "relay": ROOT / "benchmarks" / "models" / "relay_box.json",
+    "radio": ROOT / "samples" / "outdoor_radio_box.json",
+    "power": ROOT / "samples" / "compact_power_stage.json",
+    "handheld": ROOT / "samples" / "handheld_tracker.json",
+}
+
+
+def _run(model, **kw):
+    t0 = time.perf_counter()
+    s = RunSession(model, None, keep_fields=False, **kw)
+    for _ in s.events():
+        pass
+    rows = s.finish()
+    return s, {r.part: r for r in rows}, time.perf_counter() - t0
+
+
+def _split(lines, r):
+    if r == 1:
+        return lines
+    pieces = [np.linspace(a, b, r + 1)[:-1] for a, b in zip(lines[:-1], lines[1:])]
+    return np.concatenate(pieces + [lines[-1:]])
+
+
+def uniform(path, r, method):
+    original = mesh_module.plan_lines
+    mesh_module.plan_lines = lambda m: tuple(_split(l, r) for l in original(m))
+    try:
+        model = load_model(path)
+        model.run.method = method
+        return _run(model, tolerance_k=False)
+    finally:
+        mesh_module.plan_lines = original
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--models", default="relay,radio,power,handheld")
+    ap.add_argument("--reference-tolerance", type=float, default=0.25)
+    ap.add_argument("--reference-max-nodes", type=int, default=6_000_000)
+    ap.add_argument("--uniform", default="", help="comma-separated split factors, e.g. 1,2,3")
+    ap.add_argument("--method", default="reduced", help="run.method for every route (default reduced)")
+    ap.add_argument("--json", default=None, help="write the numbers to this file")
+    args = ap.parse_args(argv)
+    report = {}
+    for name in args.models.split(","):
+        path = MODELS[name]
+        rated = [p.name for p in load_model(path).parts if p.rated_c is not None]
+        out = {"rated": rated}
+
+        m = load_model(path)
+        m.run.method = args.method
+        s, rows, wall = _run(m, tolerance_k=False)
+        out["file_mesh"] = {"nodes": s.problem.n_nodes, "wall_s": wall, "peaks": {p: rows[p].peak_c for p in rated}}
+
+        m = load_model(path)
+        m.run.method = args.method
+        s, rows, wall = _run(m)
+        out["default"] = {"nodes": s.problem.n_nodes, "wall_s": wall, "levels": len(s.ladder.levels),
+                          "converged": s.ladder.converged, "stop": s.ladder.stop_reason,
+                          "peaks": {p: rows[p].peak_c for p in rated},
+                          "bound": {p: rows[p].peak_error_k for p in rated},
+                          "status": {p: rows[p].status for p in rated}}
+
+        m = load_model(path)
+        m.run.method = args.method
+        m.mesh.max_nodes = args.reference_max_nodes
+        m.mesh.max_levels = 12
+        m.mesh.time_limit_s = None
+        s, rows, wall = _run(m, tolerance_k=args.reference_tolerance)
+        out["reference"] = {"nodes": s.problem.n_nodes, "wall_s": wall, "converged": s.ladder.converged,
+                            "peaks": {p: rows[p].peak_c for p in rated},
+                            "bound": {p: rows[p].peak_error_k for p in rated}}
+
+        out["uniform"] = []
+        for r in [int(x) for x in args.uniform.split(",") if x]:
+            s, rows, wall = uniform(path, r, args.method)
+            out["uniform"].append({"split": r, "nodes": s.problem.n_nodes, "wall_s": wall,
+                                   "peaks": {p: rows[p].peak_c for p in rated}})
+        report[name] = out
+        print_model(name, out)
+    if args.json:
+        Path(args.json).write_text(json.dumps(report, indent=2, default=float))
+    return 0
+
+
+def print_model(name, out):
+    ref = out["reference"]["peaks"]
+    print(f"\n## {name}: reference {out['reference']['nodes']:,} nodes ({out['reference']['wall_s']:.0f} s), "
+          f"bounds {', '.join(f'{p} ± {b:.2f}' for p, b in out['reference']['bound'].items())}")
+    print("| route | nodes | wall s | " + " | ".join(f"{p} (off by)" for p in out["rated"]) + " |")
+    print("|---|---|---|" + "---|" * len(out["rated"]))
+
+    def row(label, d, extra=None):
+        cells = []
+        for p in out["rated"]:
+            v = d["peaks"][p]
+            txt = f"{v:.2f} ({v - ref[p]:+.2f})"
+            if extra and extra.get(p) is not None:
+                txt = f"{v:.2f} ± {extra[p]:.2f} ({v - ref[p]:+.2f})"
+            cells.append(txt)
+        print(f"| {label} | {d['nodes']:,} | {d['wall_s']:.1f} | " + " | ".join(cells) + " |")
+
+    row("file mesh as given", out["file_mesh"])
+    row(f"default ({out['default']['levels']} levels, {'converged' if out['default']['converged'] else 'stopped'})",
+        out["default"], out["default"]["bound"])
+    for u in out["uniform"]:
+        row(f"uniform split {u['split']}", u)
+    row("reference", out["reference"], out["reference"]["bound"])
+    if out["uniform"]:
+        base = out["uniform"][-1]["wall_s"]
+        print(f"default / finest uniform wall time: {out['default']['wall_s'] / base:.2f}")
+    print("statuses (default): " + ", ".join(f"{p} {s}" for p, s in out["default"]["status"].items()))
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
