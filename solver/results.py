@@ -7,8 +7,8 @@ import numpy as np
 
 from .mesh import MM
 
-PEAK_COLUMNS = ["part", "rated_c", "peak_c", "peak_time_s", "margin_k", "first_over_s",
-                "hotspot_x_mm", "hotspot_y_mm", "hotspot_z_mm", "status", "peak_error_k"]
+PEAK_COLUMNS = ["part", "rated_c", "peak_c", "peak_error_k", "peak_time_s", "margin_k", "first_over_s",
+                "hotspot_x_mm", "hotspot_y_mm", "hotspot_z_mm", "status"]
 STATUSES = ("over", "at-risk", "ok", "unrated")
 
 
@@ -40,9 +40,9 @@ class PeakRow:
     def as_csv_row(self) -> list:
         def num(v, fmt="{:.3f}"):
             return "" if v is None or (isinstance(v, float) and np.isnan(v)) else fmt.format(v)
-        return [self.part, num(self.rated_c, "{:.12g}"), num(self.peak_c), num(self.peak_time_s, "{:.12g}"),
-                num(self.margin_k), num(self.first_over_s, "{:.12g}"),
-                *(num(c) for c in self.hotspot_mm), self.status, num(self.peak_error_k, "{:.2f}")]
+        return [self.part, num(self.rated_c, "{:.12g}"), num(self.peak_c), num(self.peak_error_k, "{:.3f}"),
+                num(self.peak_time_s, "{:.12g}"), num(self.margin_k), num(self.first_over_s, "{:.12g}"),
+                *(num(c) for c in self.hotspot_mm), self.status]
 
 
 @dataclass

@@ -22,8 +22,8 @@ from conftest import minimal_model_dict
 from modelkit import model_dict, part
 from solver.cli import solve_to_folder
 
-PEAK_HEADER = ["part", "rated_c", "peak_c", "peak_time_s", "margin_k", "first_over_s",
-               "hotspot_x_mm", "hotspot_y_mm", "hotspot_z_mm", "status", "peak_error_k"]
+PEAK_HEADER = ["part", "rated_c", "peak_c", "peak_error_k", "peak_time_s", "margin_k", "first_over_s",
+               "hotspot_x_mm", "hotspot_y_mm", "hotspot_z_mm", "status"]
 
 
 def _thermgui(*args, cwd=None):

@@ -122,7 +122,12 @@ class Observed:
         self.duration = float(self.model.run.duration_s)
         times, field_min, part_mean, part_max = [], [], [], []
         e_out = 0.0
+        level = 0
         for ev in session.events():
+            if ev.level != level:  # a finer mesh of the accuracy ladder: only the last one is reported
+                level = ev.level
+                times, field_min, part_mean, part_max = [], [], [], []
+                e_out = 0.0
             times.append(ev.time_s)
             field_min.append(float(ev.field.min()))
             part_mean.append(np.array(ev.part_mean))
