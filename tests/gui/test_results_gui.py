@@ -290,7 +290,7 @@ def test_first_picture_cuts_a_closed_housing_to_show_the_hottest_part(qtbot, tmp
     assert store.complete
     rows = {r[0]: r for r in store.peak_rows}
     hottest = max(rows, key=lambda n: float(rows[n][2]))
-    spot = np.array([float(v) for v in rows[hottest][6:9]])
+    spot = np.array([float(v) for v in rows[hottest][7:10]])
     top = store.part_bounds_mm[hottest][5]
     z_all = store.points_mm[:, 2]
     assert z_all.min() < spot[2] < z_all.max()  # inside: hidden by the lid when seen whole

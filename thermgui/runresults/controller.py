@@ -187,8 +187,12 @@ class ResultsController(ResultFiles, QObject):
         self._pending_model = model.to_json_dict()
         cut = self.view.cut
 
+        cleared = []
+
         def prepare(session):  # on the worker thread: the big-mesh work that would stall the window
-            clear_old_results(out_dir)  # only now: a refused run leaves the earlier results alone
+            if not cleared:  # once, before the first mesh level (later levels write into the folder)
+                clear_old_results(out_dir)  # only now: a refused run leaves the earlier results alone
+                cleared.append(True)
             store = ResultsStore.for_problem(session.problem, session.out_dir)
             return store, build_display(store.points_mm, store.tets, cut)
 
