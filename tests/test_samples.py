@@ -117,7 +117,9 @@ class Observed:
             self.data["run"]["duration_s"] = duration_s
         self.model = parse_model(self.data, str(path))
         self.out_dir = out_dir
-        session = RunSession(self.model, out_dir)
+        # one solve on the file's mesh: the invariants below hold for any mesh, and the accuracy
+        # ladder of the default run is checked on the default sample by test_default_sample_run_is_bounded
+        session = RunSession(self.model, out_dir, tolerance_k=False)
         self.problem = session.problem
         self.duration = float(self.model.run.duration_s)
         times, field_min, part_mean, part_max = [], [], [], []
@@ -284,3 +286,25 @@ def test_sample_opens_in_the_app(path, qtbot, tmp_path, monkeypatch):
         assert doc.model.to_json_dict() == load_model(path).to_json_dict()
     finally:
         window.shutdown()
+
+
+def test_default_sample_run_is_bounded(tmp_path):
+    """The default sample as a user runs it (accuracy control on, shortened to 2 minutes): every
+    rated peak has a finite bound, the record is in run.json, and each status follows the band."""
+    data = json.loads((ROOT / "samples" / "outdoor_radio_box.json").read_text(encoding="utf-8"))
+    data["run"]["duration_s"] = 120.0
+    model = parse_model(data)
+    session = RunSession(model, tmp_path / "out")
+    for _ in session.events():
+        pass
+    rows = session.finish()
+    info = json.loads((tmp_path / "out" / "run.json").read_text())
+    levels = info["accuracy"]["levels"]
+    assert len(levels) >= 3 and levels[-1]["nodes"] > levels[0]["nodes"]
+    for r in rows:
+        if r.rated_c is None:
+            continue
+        assert r.peak_error_k is not None and 0.0 <= r.peak_error_k < 20.0
+        low, high = r.peak_c - r.peak_error_k, r.peak_c + r.peak_error_k
+        assert r.status == ("over" if low > r.rated_c else "at-risk" if high >= r.rated_c else "ok")
+    assert info["accuracy"]["converged"] or session.accuracy_warnings()
