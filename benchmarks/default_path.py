@@ -106,9 +106,9 @@ def run_ours(args, fields: str) -> dict:
     Stepper.__init__, Stepper._solver_for = init, solver_for
     session_mod.RunSession.events, session_mod.RunSession.finish = events, finish
     err, out = io.StringIO(), io.StringIO()
-    c = time.perf_counter()
+    c, cpu = time.perf_counter(), time.process_time()
     rc = solve_to_folder(model_path, out_dir, stream=out, err=err, fields=fields)
-    wall = time.perf_counter() - c
+    wall, cpu = time.perf_counter() - c, time.process_time() - cpu
     if rc != 0:
         raise SystemExit(err.getvalue())
     s = t["session"]
@@ -116,7 +116,7 @@ def run_ours(args, fields: str) -> dict:
     info = st.reduced_info if st.method == "reduced" else None
     basis = (info.basis_s if info else t["factor"]) + t["choice"]
     res = {
-        "nodes": s.problem.n_nodes, "tets": s.problem.mesh.n_tets, "wall": wall, "mesh": t["mesh"],
+        "nodes": s.problem.n_nodes, "tets": s.problem.mesh.n_tets, "wall": wall, "cpu": cpu, "mesh": t["mesh"],
         "assembly": t["assembly"], "basis_or_factor": basis,
         "stepping": t["events"] - (info.basis_s if info else t["factor"]),
         "writer_thread": s._series.write_s if s._series is not None else 0.0, "finish": t["finish"],
@@ -246,6 +246,7 @@ def main(argv=None) -> int:
     row("writing: writer thread (beside stepping)", ours["writer_thread"])
     row("writing: close + csv + json at the end", ours["finish"])
     row("whole run (end to end)" + est, ours["wall"], base and base["answer"]["wall"])
+    row("whole run, CPU s (all threads)" + est, ours["cpu"], base and base["answer"]["cpu"])
     print(f"{'peak memory, MB':<40} {ours['peak_mb']:9.0f} {base['peak_mb'] if base else 0:10.0f}")
     print(f"results folder {ours['folder_mb']:.0f} MB, of which field file {ours['field_mb']:.0f} MB")
     if bare:

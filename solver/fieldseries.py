@@ -254,10 +254,9 @@ class HDFFieldSeries(FieldSeries):
     layout = "vtkhdf"
 
     def __init__(self, path):
-        h5py = _h5py()
         self.path = Path(path)
-        self._fh = h5py.File(self.path, "r")
-        g = self._fh["VTKHDF"]
+        self._fh = None
+        g = self._group()
         steps = g["Steps"]
         self.n_points = int(g["NumberOfPoints"][0])
         values = np.asarray(steps["Values"][...], dtype=float)
@@ -265,21 +264,28 @@ class HDFFieldSeries(FieldSeries):
         temp = g["PointData"][FIELD_NAME]
         usable = int(min(len(values), len(offsets), temp.shape[0] // max(1, self.n_points)))
         self._offsets = offsets[:usable]
-        self._temp = temp
         super().__init__(values[:usable])
 
+    def _group(self):
+        """The /VTKHDF group, opening the file (again, after :meth:`close`) when needed."""
+        if self._fh is None:
+            self._fh = _h5py().File(self.path, "r")
+        return self._fh["VTKHDF"]
+
     def geometry(self) -> dict:
-        g = self._fh["VTKHDF"]
+        g = self._group()
         conn = np.asarray(g["Connectivity"][...], dtype=np.int64)
         return {"points_mm": np.asarray(g["Points"][...], dtype=float), "tets": conn.reshape(-1, 4),
                 "part_id": np.asarray(g["CellData"]["part_id"][...])}
 
     def field(self, i: int) -> np.ndarray:
         o = int(self._offsets[i])
-        return np.asarray(self._temp[o:o + self.n_points], dtype=np.float32)
+        return np.asarray(self._group()["PointData"][FIELD_NAME][o:o + self.n_points], dtype=np.float32)
 
     def close(self) -> None:
-        self._fh.close()
+        if self._fh is not None:
+            self._fh.close()
+            self._fh = None
 
 
 class LegacyFieldSeries(FieldSeries):

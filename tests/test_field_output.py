@@ -64,6 +64,8 @@ def test_frames_round_trip_through_vtk_and_our_reader(tmp_path, problem, compres
     np.testing.assert_allclose(g["points_mm"], problem.mesh.nodes * 1000.0)
     np.testing.assert_array_equal(g["tets"], problem.mesh.tets)
     np.testing.assert_array_equal(g["part_id"], problem.mesh.tet_part)
+    s.close()  # the file is not held open; a later read opens it again
+    np.testing.assert_array_equal(s.field(8), frames[8].astype(np.float32))
     s.close()
 
 
