@@ -42,12 +42,18 @@ class ResultFiles:
         self._results_model = run.model_dict
         self.stale = self._model_differs()
         self.status.clear_error()
+        # decide the revealing cut before the geometry, so a big mesh's surface is extracted once
+        shown, self.results_shown = self.results_shown, False  # (nothing is redrawn meanwhile)
+        try:
+            cut_note = self._auto_cut()
+        finally:
+            self.results_shown = shown
         self.view.set_geometry(store.points_mm, store.tets)
         self.table.set_rows(store.peak_rows)
         self.export_action.setEnabled(True)
         self.status.started(f"Results of {Path(folder).name}", store.duration_s)
         self.status.finished(f"Opened {store.n_frames} outputs from {Path(folder).name} (not solved again)"
-                             + self._auto_cut())
+                             + cut_note)
         self.status.detail.setToolTip(str(folder))
         self.timeline.blockSignals(True)
         self.timeline.set_times(store.times, store.duration_s)
