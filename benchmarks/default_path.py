@@ -65,21 +65,22 @@ def run_ours(args, fields: str) -> dict:
     t = {}
     real_build, real_init, real_solver_for = session_mod.build_problem, Stepper.__init__, Stepper._solver_for
     real_events, real_finish = session_mod.RunSession.events, session_mod.RunSession.finish
-    t["factor"] = 0.0
+    t.update(factor=0.0, mesh=0.0, assembly=0.0, choice=0.0, steppers=[])
 
-    def build(model, mesh=None):
+    def build(model, mesh=None):  # the first level's mesh here; finer levels bring their own
         c = time.perf_counter()
-        mesh = build_mesh(model)
-        t["mesh"] = time.perf_counter() - c
+        mesh = mesh if mesh is not None else build_mesh(model)
+        t["mesh"] += time.perf_counter() - c
         c = time.perf_counter()
         p = problem_mod.build_problem(model, mesh)
-        t["assembly"] = time.perf_counter() - c
+        t["assembly"] += time.perf_counter() - c
         return p
 
     def init(self, *a, **k):  # method and linear-solver choice (may run PARDISO's analysis)
         c = time.perf_counter()
         real_init(self, *a, **k)
-        t["choice"] = time.perf_counter() - c
+        t["choice"] += time.perf_counter() - c
+        t["steppers"].append(self)
 
     def solver_for(self, dt, theta):
         if (dt, theta) in self._solvers:
@@ -107,18 +108,23 @@ def run_ours(args, fields: str) -> dict:
     session_mod.RunSession.events, session_mod.RunSession.finish = events, finish
     err, out = io.StringIO(), io.StringIO()
     c, cpu = time.perf_counter(), time.process_time()
-    rc = solve_to_folder(model_path, out_dir, stream=out, err=err, fields=fields)
+    rc = solve_to_folder(model_path, out_dir, stream=out, err=err, fields=fields,
+                         tolerance_k=False if args.single_mesh else "model")
     wall, cpu = time.perf_counter() - c, time.process_time() - cpu
     if rc != 0:
         raise SystemExit(err.getvalue())
     s = t["session"]
     st = s.stepper
     info = st.reduced_info if st.method == "reduced" else None
-    basis = (info.basis_s if info else t["factor"]) + t["choice"]
+    basis_s = sum(x.reduced_info.basis_s for x in t["steppers"]
+                  if x.method == "reduced" and x.reduced_info is not None)
+    basis = basis_s + t["factor"] + t["choice"]
     res = {
         "nodes": s.problem.n_nodes, "tets": s.problem.mesh.n_tets, "wall": wall, "cpu": cpu, "mesh": t["mesh"],
         "assembly": t["assembly"], "basis_or_factor": basis,
-        "stepping": t["events"] - (info.basis_s if info else t["factor"]),
+        "stepping": t["events"] - basis_s - t["factor"],
+        "levels": getattr(s, "level", 0) + 1, "solves": len(t["steppers"]),
+        "level_nodes": [int(x.problem.n_nodes) for x in t["steppers"]],
         "writer_thread": s._series.write_s if s._series is not None else 0.0, "finish": t["finish"],
         "method": st.method, "method_reason": st.method_choice.reason, "linear_solver": st.choice.method,
         "frames": s._series.n_frames if s._series is not None else 0, "steps": st.n_steps,
@@ -182,7 +188,7 @@ def open_in_app(folder: Path) -> dict:
 def _child(args, part: str, extra=()) -> dict | None:
     cmd = [sys.executable, __file__, "--part", part, "--nodes", str(args.nodes), "--duration", str(args.duration),
            "--output-every", str(args.output_every), "--baseline-steps", str(args.baseline_steps),
-           "--workdir", args.workdir, *extra]
+           "--workdir", args.workdir, *extra] + (["--single-mesh"] if args.single_mesh else [])
     if args.cell_mm:
         cmd += ["--cell-mm", str(args.cell_mm)]
     proc = subprocess.run(cmd, capture_output=True, text=True)
@@ -201,6 +207,8 @@ def main(argv=None) -> int:
     ap.add_argument("--output-every", type=float, default=20.0)
     ap.add_argument("--baseline-steps", type=int, default=0, help="time only this many baseline steps")
     ap.add_argument("--skip-baseline", action="store_true")
+    ap.add_argument("--single-mesh", action="store_true",
+                    help="solve the given mesh only (no mesh-accuracy ladder: RunSession tolerance_k=False)")
     ap.add_argument("--skip-none", action="store_true", help="do not repeat the run with --fields none")
     ap.add_argument("--keep", action="store_true", help="keep the results folders (for --open-app)")
     ap.add_argument("--workdir", default=None)
@@ -230,6 +238,8 @@ def main(argv=None) -> int:
     print(f"\nmodel: {ours['nodes']:,} nodes, {ours['tets']:,} tetrahedra; {args.duration:g} s, Crank–Nicolson 1 s, "
           f"outputs every {args.output_every:g} s ({ours['frames']} frames)")
     print(f"ours: method {ours['method']} ({ours['method_reason']}); linear solver {ours['linear_solver']}")
+    print(f"      {len(ours['level_nodes'])} solves (mesh levels and checks) on "
+          f"{', '.join(f'{n:,}' for n in ours['level_nodes'])} nodes; the last is the one reported")
     if ours["reduced"]:
         print(f"      {ours['reduced']}")
     print(f"\n{'seconds (wall)':<40} {'ours':>9} {'baseline':>10} {'base/ours':>10}")
