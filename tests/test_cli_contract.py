@@ -291,3 +291,16 @@ def test_vtu_writer_round_trip_through_pyvista(tmp_path, n_points):
     np.testing.assert_array_equal(grid.point_data["temperature_c"], temp)
     np.testing.assert_array_equal(grid.cell_data["part_id"], part_id)
     assert float(np.asarray(grid.field_data["TimeValue"])[0]) == 12.5
+
+
+def test_fields_none_and_method_auto_on_the_command_line(tmp_path):
+    model = _write(tmp_path / "m.json", _good_model())
+    out = tmp_path / "bare"
+    r = _thermgui("solve", model, "--out", out, "--fields", "none", "--method", "auto")
+    assert r.returncode == 0, r.stderr
+    assert sorted(p.name for p in out.iterdir()) == ["history.csv", "peaks.csv", "run.json"]
+    assert "fields: none written" in r.stdout and "method: " in r.stdout
+    info = json.loads((out / "run.json").read_text())
+    assert info["solver"]["method"] in ("full", "reduced") and info["solver"]["method_reason"]
+    bad = _thermgui("solve", model, "--out", tmp_path / "x", "--fields", "some")
+    assert bad.returncode == 2 and "--fields" in bad.stderr
