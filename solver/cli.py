@@ -11,6 +11,7 @@ from pathlib import Path
 
 from .accuracy import format_record
 from .errors import Cancelled, ModelError, SolveError
+from .fieldseries import FieldWriteError
 from .model import load_model
 from .results import sort_for_review
 from .session import RunSession
@@ -62,14 +63,16 @@ class ProgressBar:
 
 
 def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str = "auto",
-                    stream=None, err=None, method: str | None = None, tolerance_k="model") -> int:
+                    stream=None, err=None, method: str | None = None, tolerance_k="model",
+                    fields: str = "all") -> int:
     """Run a model file and write results; returns the exit status (streams default to stdout/stderr)."""
     stream = stream if stream is not None else sys.stdout
     err = err if err is not None else sys.stderr
     t0 = time.perf_counter()
     try:
         model = load_model(model_path)
-        session = RunSession(model, out_dir, linear_solver=linear_solver, method=method, tolerance_k=tolerance_k)
+        session = RunSession(model, out_dir, linear_solver=linear_solver, method=method, tolerance_k=tolerance_k,
+                             fields=fields)
     except ModelError as e:
         err.write(e.with_source(e.source or str(model_path)).describe() + "\n")
         return 2
@@ -94,10 +97,14 @@ def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str
         return 1
     except OSError as e:
         bar.finish()
-        err.write(f"{out_dir}: cannot write results ({e.strerror or e})\n")
+        err.write(_write_error(out_dir, e))
         return 1
     bar.finish()
-    rows = session.finish()
+    try:
+        rows = session.finish()
+    except OSError as e:
+        err.write(_write_error(out_dir, e))
+        return 1
     for w in session.accuracy_warnings():
         err.write(f"warning: {w}\n")
     if not quiet:
@@ -105,12 +112,21 @@ def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str
         record = session.accuracy_record()
         if record:
             stream.write(format_record(record) + "\n")
-        if session.stepper.reduced_info is not None and session.stepper.method == "reduced":
-            stream.write(session.stepper.reduced_info.describe() + "\n")
+        st = session.stepper
+        stream.write(f"method: {st.method} ({st.method_choice.reason})\n")
+        if st.reduced_info is not None and st.method == "reduced":
+            stream.write(st.reduced_info.describe() + "\n")
+        fw = session.written_files()
+        stream.write(f"fields: {', '.join(fw) if fw else 'none written (--fields none)'}\n")
         stream.write(f"energy balance: largest step residual {session.recorder.relative_energy_residual:.1e} of "
                      f"the largest heat flow; results in {out_dir} ({time.perf_counter() - t0:.1f} s)\n")
         stream.write(CAUTION + "\n")
     return 0
+
+
+def _write_error(out_dir, e: OSError) -> str:
+    """One line naming the folder (a FieldWriteError from the writer thread names it already)."""
+    return f"{e}\n" if isinstance(e, FieldWriteError) else f"{out_dir}: cannot write results ({e.strerror or e})\n"
 
 
 def format_summary(rows) -> str:
@@ -132,13 +148,17 @@ def add_solve_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("model", help="model file (JSON, format thermgui-model version 1)")
     p.add_argument("--out", required=True, help="folder for peaks.csv, history.csv, run.json and the field series")
     p.add_argument("--quiet", action="store_true", help="no progress bar or summary")
+    p.add_argument("--fields", choices=["all", "none"], default="all",
+                   help="write the temperature field at output times (field.vtkhdf; default all), or none "
+                        "(peaks.csv, history.csv and run.json are written either way)")
     p.add_argument("--linear-solver", default="auto", choices=["auto", "direct", "multigrid"],
                    help="linear solver for implicit steps (default: chosen by size)")
     p.add_argument("--tolerance", type=_tolerance, default="model", metavar="K",
                    help="override mesh.tolerance_k: refine until each rated peak's estimated error is below K "
                         "kelvin, or 'none' to keep the file's mesh (its error is still estimated)")
-    p.add_argument("--method", choices=["full", "reduced"], default=None,
-                   help="override run.method: step the full system, or a reduced basis within run.tolerance_k")
+    p.add_argument("--method", choices=["auto", "full", "reduced"], default=None,
+                   help="override run.method: auto (by predicted cost; the default), step the full system, "
+                        "or a reduced basis within run.tolerance_k")
 
 
 def main(argv=None) -> int:
@@ -146,7 +166,7 @@ def main(argv=None) -> int:
     add_solve_arguments(parser)
     args = parser.parse_args(argv)
     return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver, method=args.method,
-                           tolerance_k=args.tolerance)
+                           tolerance_k=args.tolerance, fields=args.fields)
 
 
 def _tolerance(text: str):

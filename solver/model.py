@@ -156,10 +156,11 @@ class RunSettings(_Strict):
     # adaptive steps: temperature tolerance in K (local error per step, TR-BDF2); step_s is then
     # the first step and the restart step after jumps. Absent = fixed steps of step_s.
     tolerance_k: Optional[Positive] = None
-    # "full" (default): step the finite-element system; "reduced": project it onto a Krylov basis
-    # grown until its estimated error is below tolerance_k (default 0.1 K) and integrate exactly;
-    # step_s is then the sampling interval for peaks.
-    method: Optional[Literal["full", "reduced"]] = None
+    # "auto" (default; absent = auto): the cheaper of the two by predicted cost (solver/methodchoice.py);
+    # "full": step the finite-element system; "reduced": project it onto a Krylov basis grown until
+    # its estimated error is below tolerance_k (default 0.1 K) and integrate exactly; step_s is then
+    # the sampling interval for peaks.
+    method: Optional[Literal["auto", "full", "reduced"]] = None
 
     @property
     def output_interval_s(self) -> float:

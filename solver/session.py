@@ -5,7 +5,8 @@ Both the command line and the app drive a :class:`RunSession`::
     session = RunSession(model, out_dir)      # meshes, assembles, checks stability (ModelError)
     for event in session.events():            # StepEvent after every step, of every mesh level
         ...                                   # progress, live view; stop iterating to cancel
-    rows = session.finish()                   # writes peaks.csv, history.csv, run.json, field.pvd
+    rows = session.finish()                   # writes peaks.csv, history.csv, run.json (field.vtkhdf
+                                              # is written beside the stepping, on a background thread)
 
 With ``mesh.tolerance_k`` (default 1 K) the run is a ladder of meshes (:mod:`solver.accuracy`):
 each level is solved in full and streamed, ``event.level`` tells which, and ``session.problem``
@@ -30,7 +31,8 @@ from .reduced import DEFAULT_TOLERANCE_K as REDUCED_DEFAULT_TOLERANCE_K
 from .refinement import influence_fields, refined_lines
 from .results import PeakRow, RunRecorder
 from .stepping import StepEvent, Stepper
-from .writers import FieldSeriesWriter, write_history_csv, write_peaks_csv, write_run_info
+from .fieldseries import FieldWriter
+from .writers import write_history_csv, write_peaks_csv, write_run_info
 
 KEEP_IN_MEMORY_BYTES = 5e8  # frames of an unstreamed level kept in memory up to this size
 DUAL_WEIGHTED = True  # refine by goal-oriented (influence-weighted) indicators
@@ -44,7 +46,8 @@ def _dual_method(method: str) -> str:
 
 
 class RunSession:
-    """Prepare, step and record one run. ``out_dir=None`` keeps fields in memory only.
+    """Prepare, step and record one run. ``out_dir=None`` keeps fields in memory only;
+    ``fields="none"`` writes no field file (peaks, history and run.json still).
 
     ``tolerance_k`` overrides ``mesh.tolerance_k`` ("model" = use the file's; None = keep the mesh
     as given and only estimate its error; ``False`` = no estimate at all, a single solve).
@@ -52,7 +55,7 @@ class RunSession:
 
     def __init__(self, model, out_dir=None, cancel: Callable[[], bool] | None = None,
                  linear_solver: str = "auto", keep_fields: bool | None = None, method: str | None = None,
-                 tolerance_k="model"):
+                 tolerance_k="model", fields: str = "all"):
         self.t_start = time.perf_counter()
         self.model = model
         self.cancel, self.linear_solver, self.method = cancel, linear_solver, method
@@ -64,6 +67,7 @@ class RunSession:
         self.level = 0
         self.out_dir = Path(out_dir) if out_dir is not None else None
         self._series = None
+        self.fields = fields
         self.recorder = None
         self.keep_fields = keep_fields if keep_fields is not None else self.out_dir is None
         self.last_event: StepEvent | None = None
@@ -94,6 +98,7 @@ class RunSession:
         steps = (f"{len(s.outputs):,} output times" if s.method == "reduced" else f"{s.n_steps:,} steps")
         level = f"mesh level {self.level}: " if self.estimate else ""
         return (f"{level}{p.n_nodes:,} nodes, {p.mesh.n_tets:,} tetrahedra, {steps} ({s.scheme}); "
+                f"method: {s.method} ({s.method_choice.reason}); "
                 f"linear solver: {s.choice.method} ({s.choice.reason})")
 
     # ------------------------------------------------------------------ the ladder
@@ -107,21 +112,36 @@ class RunSession:
 
     def _solve_level(self, stream_fields: bool) -> Iterator[StepEvent]:
         sink = None
+        self._close_writer()  # an earlier level's file is replaced (or left, if this level is not streamed)
         if stream_fields and self.out_dir is not None:
             self.out_dir.mkdir(parents=True, exist_ok=True)
-            self._series = FieldSeriesWriter(self.out_dir, self.problem)
+            self._series = FieldWriter(self.out_dir, self.problem, fields=self.fields)
             sink = self._series
         keep = self.keep_fields or (self.out_dir is not None and not stream_fields and self._fits_in_memory())
         self.recorder = RunRecorder(self.problem, field_sink=sink, keep_fields=keep,
                                     peak_field_parts=tuple(self.ladder.goal) if self.estimate else ())
         self._streamed_final = sink is not None
         t0 = time.perf_counter()
-        for ev in self.stepper:
-            ev.level = self.level
-            self.recorder.add(ev)
-            self.last_event = ev
-            yield ev
+        try:
+            for ev in self.stepper:
+                ev.level = self.level
+                self.recorder.add(ev)
+                self.last_event = ev
+                yield ev
+        except BaseException:  # the run failed or was stopped: let the writer thread end
+            if self._series is not None:
+                self._series.abort()
+            raise
         self._level_wall = time.perf_counter() - t0
+
+    def _close_writer(self) -> None:
+        """Finish an earlier level's writer (its errors are reported when the final one closes)."""
+        if self._series is not None:
+            self._series.abort()
+
+    def written_files(self) -> list[str]:
+        """Relative paths of the field files written (see :meth:`FieldWriter.written_files`)."""
+        return self._series.written_files() if self._series is not None else []
 
     def _fits_in_memory(self) -> bool:
         frames = len(self.stepper.outputs)
@@ -252,19 +272,22 @@ class RunSession:
                 r.peak_error_k = float(err[i]) if np.isfinite(err[i]) else None
         if self.out_dir is not None:
             if self._streamed_final:
-                self._series.close()
+                self._series.close()  # waits for the queued frames; OSError naming the folder on failure
             else:
                 self._write_kept_fields()
             write_peaks_csv(self.out_dir / "peaks.csv", rows)
             write_history_csv(self.out_dir / "history.csv", self.recorder)
             write_run_info(self.out_dir / "run.json", self.problem, self.recorder, self.stepper,
-                           time.perf_counter() - self.t_start, accuracy=self.accuracy_record())
+                           time.perf_counter() - self.t_start, accuracy=self.accuracy_record(),
+                           field_files=self.written_files(),
+                           field_write_s=self._series.write_s if self._series is not None else None)
         return rows
 
     def _write_kept_fields(self) -> None:
         """Fields of a level that was not streamed (kept in memory), written now."""
         self.out_dir.mkdir(parents=True, exist_ok=True)
-        writer = FieldSeriesWriter(self.out_dir, self.problem)
+        self._close_writer()
+        self._series = FieldWriter(self.out_dir, self.problem, fields=self.fields)
         for t, f in zip(self.recorder.times, self.recorder.fields):
-            writer(t, f)
-        writer.close()
+            self._series(t, f)
+        self._series.close()

@@ -11,6 +11,7 @@ and the app alike; each iteration yields a :class:`StepEvent`; stop iterating (o
 """
 from __future__ import annotations
 
+import dataclasses
 import time as _time
 from collections import OrderedDict
 from dataclasses import dataclass
@@ -21,6 +22,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
 from .errors import Cancelled, ModelError, SolveError
+from .methodchoice import METHODS, RunShape, choose_run_method
 from .linsolve import DiagonalSolver, choose_method, make_solver, needs_analysis, pardiso_factor_bytes
 from .timegrid import TimeStep, output_times, plan_steps
 
@@ -125,9 +127,9 @@ class Stepper:
         self.problem = problem
         run = problem.model.run
         self.cancel = cancel
-        self.method = method or getattr(run, "method", None) or "full"
-        if self.method not in ("full", "reduced"):
-            raise ValueError(f"unknown method {self.method!r}")
+        requested = method or getattr(run, "method", None) or "auto"
+        if requested not in METHODS:
+            raise ValueError(f"unknown method {requested!r}")
         self.reduced_info = None
         self.tolerance_k = tolerance_k if tolerance_k is not None else getattr(run, "tolerance_k", None)
         self.adaptive = self.tolerance_k is not None
@@ -151,6 +153,8 @@ class Stepper:
             self.steps = plan_steps(float(run.duration_s), float(run.step_s), self.theta,
                                     problem.breakpoints(float(run.duration_s)), self.outputs, damp_after_jumps)
             self._n_steps_estimate = len(self.steps)
+        self.method_choice = choose_run_method(self._run_shape(), requested)
+        self.method = self.method_choice.method
         if self.method == "reduced":
             self._full_plan = (self.scheme, self._n_steps_estimate)
             self.scheme = "reduced basis (exact in time)"
@@ -159,6 +163,23 @@ class Stepper:
             self._check_explicit_stability()
         self.choice = self._choose_solver(linear_solver)
         self._mass_cache: dict = {}
+
+    def _run_shape(self) -> RunShape:
+        """Nodes, planned steps, step matrices, distinct load shapes and fields out (for the choice)."""
+        p = self.problem
+        groups: list = []
+        for _, amb in p.conv_loads:  # convection entries sharing an ambient profile share a basis column
+            if not any(amb == g for g in groups):
+                groups.append(amb)
+        shapes = len(p.heat_profiles) + len(groups) + (1 if np.ptp(p.initial) > 0.0 else 0)
+        implicit = [s for s in self.steps if s.theta > 0.0]
+        from .reduced import MAX_BASIS_BYTES, MAX_COLUMNS
+
+        return RunShape(nodes=p.n_nodes, steps=self._n_steps_estimate,
+                        step_matrices=max(1, len({(round(s.dt, 12), s.theta) for s in implicit})),
+                        load_shapes=shapes, events=len(self.outputs) + 2 * len(p.model.parts),
+                        explicit=not self.adaptive and self.theta == 0.0, adaptive=self.adaptive,
+                        max_columns=int(min(MAX_COLUMNS, MAX_BASIS_BYTES // (8 * max(1, p.n_nodes)))))
 
     def _choose_solver(self, requested: str):
         """The linear-solver choice for this run; near the memory limit PARDISO's analysis of the
@@ -197,6 +218,9 @@ class Stepper:
     def fall_back_to_full(self) -> None:
         """Switch a reduced run to stepping the full system (when the basis does not converge)."""
         self.method = "full"
+        self.method_choice = dataclasses.replace(
+            self.method_choice, method="full",
+            reason=self.method_choice.reason + "; the basis did not converge, so the full system was stepped")
         self.scheme, self._n_steps_estimate = self._full_plan
         self._check_explicit_stability()
 

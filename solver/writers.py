@@ -1,4 +1,4 @@
-"""Output files of a run: peaks.csv, history.csv, the field series (.pvd + .vtu) and run.json."""
+"""Output files of a run: peaks.csv, history.csv and run.json (the field: :mod:`solver.fieldseries`)."""
 from __future__ import annotations
 
 import csv
@@ -6,15 +6,8 @@ import dataclasses
 import json
 from pathlib import Path
 
-import numpy as np
-
-from .mesh import MM
 from .results import PEAK_COLUMNS, RunRecorder
-from .vtkxml import write_pvd, write_vtu
-
-FIELD_NAME = "temperature_c"
-SERIES_NAME = "field.pvd"
-FRAME_DIR = "field"
+from .fieldseries import FIELD_FILE, FIELD_NAME  # noqa: F401 (FIELD_NAME re-exported)
 
 
 def write_peaks_csv(path, rows) -> None:
@@ -38,35 +31,16 @@ def write_history_csv(path, recorder: RunRecorder) -> None:
             w.writerow([f"{t:.12g}"] + [f"{v:.4f}" for v in pmax[i]] + [f"{v:.4f}" for v in probes[i]])
 
 
-class FieldSeriesWriter:
-    """Writes one .vtu per output time as it arrives, and the .pvd index at :meth:`close`."""
-
-    def __init__(self, out_dir, problem):
-        self.out_dir = Path(out_dir)
-        (self.out_dir / FRAME_DIR).mkdir(parents=True, exist_ok=True)
-        self.points_mm = problem.mesh.nodes / MM
-        self.tets = problem.mesh.tets
-        self.part_id = problem.mesh.tet_part.astype(np.int32)
-        self.entries = []
-
-    def __call__(self, time_s: float, field: np.ndarray) -> None:
-        name = f"{FRAME_DIR}/t_{len(self.entries):05d}.vtu"
-        write_vtu(self.out_dir / name, self.points_mm, self.tets,
-                  {FIELD_NAME: np.asarray(field, dtype=np.float32)}, {"part_id": self.part_id}, time_s)
-        self.entries.append((float(time_s), name))
-
-    def close(self) -> None:
-        write_pvd(self.out_dir / SERIES_NAME, self.entries)
-
-
-def write_run_info(path, problem, recorder: RunRecorder, stepper, wall_s: float, accuracy: dict | None = None) -> None:
+def write_run_info(path, problem, recorder: RunRecorder, stepper, wall_s: float, accuracy: dict | None = None,
+                   field_files=None, field_write_s: float | None = None) -> None:
     """run.json: what was solved, how, and the energy balance (for the record and the app)."""
     info = {
         "format": "thermgui-run", "version": 1,
         "model": problem.model.to_json_dict(),
         "mesh": {"nodes": int(problem.n_nodes), "tetrahedra": int(problem.mesh.n_tets),
                  "planes": [len(l) for l in problem.mesh.lines]},
-        "solver": {"method": stepper.method, "scheme": stepper.scheme,
+        "solver": {"method": stepper.method, "method_requested": stepper.method_choice.requested,
+                   "method_reason": stepper.method_choice.reason, "scheme": stepper.scheme,
                    "theta": stepper.theta if stepper.method == "full" else None, "steps": stepper.n_steps,
                    "factorizations": stepper.factorizations, "linear_solver": stepper.choice.method,
                    "linear_solver_reason": stepper.choice.reason, "critical_step_s": stepper.critical_step_s,
@@ -77,7 +51,8 @@ def write_run_info(path, problem, recorder: RunRecorder, stepper, wall_s: float,
         "units": {"length": "mm", "temperature": "degC", "time": "s"},
         "wall_time_s": wall_s,
         "accuracy": accuracy,
-        "field_series": SERIES_NAME,
+        "field_write_s": field_write_s,  # wall time of the field writer thread (beside the stepping)
+        "field_series": (field_files[0] if field_files else None) if field_files is not None else FIELD_FILE,
         "part_names": [p.name for p in problem.model.parts],
     }
     Path(path).write_text(json.dumps(info, indent=2, default=float) + "\n")

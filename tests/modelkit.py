@@ -22,9 +22,12 @@ SLOW = {"conductivity": 1.0, "density": 1000.0, "specific_heat": 1000.0}
 
 def model_dict(parts, materials=None, heat_loads=(), convection=(), probes=(), cell_mm=2.0, min_layers=1,
                duration_s=10.0, step_s=1.0, scheme="backward-euler", mass="consistent", output_every_s=None,
-               ambient_c=25.0, initial_c=25.0) -> dict:
-    """A model-file dict (format version 1) from pieces; ``parts`` are dicts as in the file."""
+               ambient_c=25.0, initial_c=25.0, method=None) -> dict:
+    """A model-file dict (format version 1) from pieces; ``parts`` are dicts as in the file.
+    ``method="full"`` where a check is about the time integrator (``auto`` may pick the reduced basis)."""
     run = {"duration_s": duration_s, "step_s": step_s, "scheme": scheme, "mass": mass}
+    if method is not None:
+        run["method"] = method
     if output_every_s is not None:
         run["output_every_s"] = output_every_s
     return {

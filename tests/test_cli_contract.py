@@ -12,7 +12,6 @@ import io
 import json
 import subprocess
 import sys
-import xml.etree.ElementTree as ET
 from pathlib import Path
 
 import numpy as np
@@ -216,27 +215,43 @@ def test_first_over_is_interpolated_and_peak_matches_history(good_run):
 
 
 def test_field_series_opens_in_pyvista_and_matches_history(good_run):
+    """field.vtkhdf is one time series for VTK's own reader (vtkHDFReader, a general VTK reader,
+    not ours): every step has the whole mesh, the time of its history row, and temperatures whose
+    part maxima are the history's."""
     pv = pytest.importorskip("pyvista")
+    from vtkmodules.util.numpy_support import vtk_to_numpy
+    from vtkmodules.vtkIOHDF import vtkHDFReader
+
     _, out = good_run
-    root = ET.parse(out / "field.pvd").getroot()
-    sets = [(float(ds.get("timestep")), out / ds.get("file")) for ds in root.iter("DataSet")]
+    path = out / "field.vtkhdf"
     hh, hrows = _csv(out / "history.csv")
     h = np.array([[float(v) for v in r] for r in hrows])
-    assert len(sets) == len(h)
-    np.testing.assert_allclose([s[0] for s in sets], h[:, 0], atol=1e-9)
-    for i in range(len(sets)):
-        grid = pv.read(sets[i][1])
-        assert grid.n_cells > 0 and grid.celltypes.max() == grid.celltypes.min() == 10  # VTK_TETRA
-        temp = np.asarray(grid.point_data["temperature_c"])
+    reader = vtkHDFReader()
+    reader.SetFileName(str(path))
+    reader.Update()
+    assert reader.GetNumberOfSteps() == len(h)
+    np.testing.assert_allclose(np.array(reader.GetOutputInformation(0).Get(
+        reader.GetExecutive().TIME_STEPS())), h[:, 0], atol=1e-9)
+    first = pv.read(path)  # pyvista opens it too (step 0)
+    for i in range(len(h)):
+        reader.SetStep(i)
+        reader.Update()
+        grid = pv.wrap(reader.GetOutput())
+        assert grid.n_points == first.n_points and grid.n_cells == first.n_cells > 0
+        assert grid.celltypes.max() == grid.celltypes.min() == 10  # VTK_TETRA
+        temp = vtk_to_numpy(reader.GetOutput().GetPointData().GetArray("temperature_c"))
         part_id = np.asarray(grid.cell_data["part_id"])
         cells = grid.cells.reshape(-1, 5)[:, 1:]
         for p, name in enumerate(["base", "chip", "cover"]):
             nodes = np.unique(cells[part_id == p])
             assert temp[nodes].max() == pytest.approx(h[i, hh.index(f"max:{name}")], abs=2e-3)
-        # every tetrahedron has positive volume as VTK computes it
-        assert np.asarray(grid.compute_cell_sizes(length=False, area=False)["Volume"]).min() > 0
+        if i == 0:
+            np.testing.assert_array_equal(temp, first.point_data["temperature_c"])
+            # every tetrahedron has positive volume as VTK computes it
+            assert np.asarray(grid.compute_cell_sizes(length=False, area=False)["Volume"]).min() > 0
     info = json.loads((out / "run.json").read_text())
     assert info["energy"]["relative_residual"] < 1e-9
+    assert info["field_series"] == "field.vtkhdf" and not (out / "field.pvd").exists()
 
 
 def test_times_in_csv_keep_their_precision_on_long_runs(tmp_path):
@@ -276,3 +291,16 @@ def test_vtu_writer_round_trip_through_pyvista(tmp_path, n_points):
     np.testing.assert_array_equal(grid.point_data["temperature_c"], temp)
     np.testing.assert_array_equal(grid.cell_data["part_id"], part_id)
     assert float(np.asarray(grid.field_data["TimeValue"])[0]) == 12.5
+
+
+def test_fields_none_and_method_auto_on_the_command_line(tmp_path):
+    model = _write(tmp_path / "m.json", _good_model())
+    out = tmp_path / "bare"
+    r = _thermgui("solve", model, "--out", out, "--fields", "none", "--method", "auto")
+    assert r.returncode == 0, r.stderr
+    assert sorted(p.name for p in out.iterdir()) == ["history.csv", "peaks.csv", "run.json"]
+    assert "fields: none written" in r.stdout and "method: " in r.stdout
+    info = json.loads((out / "run.json").read_text())
+    assert info["solver"]["method"] in ("full", "reduced") and info["solver"]["method_reason"]
+    bad = _thermgui("solve", model, "--out", tmp_path / "x", "--fields", "some")
+    assert bad.returncode == 2 and "--fields" in bad.stderr

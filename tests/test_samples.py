@@ -181,7 +181,7 @@ def test_runs_to_the_end_and_writes_results(observed):
     assert observed.times[0] == 0.0 and observed.times[-1] == pytest.approx(observed.duration)
     if observed.out_dir is None:
         return
-    for name in ("peaks.csv", "history.csv", "run.json", "field.pvd"):
+    for name in ("peaks.csv", "history.csv", "run.json", "field.vtkhdf"):
         assert (observed.out_dir / name).is_file(), name
     with open(observed.out_dir / "peaks.csv", newline="", encoding="utf-8") as fh:
         rows = {r["part"]: r for r in csv.DictReader(fh)}

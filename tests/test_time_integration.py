@@ -42,7 +42,7 @@ def _model(kind: str, step: float, scheme: str, mass: str = "consistent") -> dic
                       convection=[{"name": "bottom", "part": "plate", "side": "z-", "h": 200.0, "ambient_c": amb},
                                   {"name": "chip top", "part": "chip", "side": "z+", "h": 20.0}],
                       cell_mm=3.0, duration_s=float(OUTPUTS[-1]), step_s=step, scheme=scheme, mass=mass,
-                      output_every_s=8.0, ambient_c=20.0, initial_c=20.0)
+                      output_every_s=8.0, ambient_c=20.0, initial_c=20.0, method="full")
 
 
 @functools.lru_cache(maxsize=None)
@@ -122,7 +122,7 @@ def _drop_case():
                                                              "period_s": 100.0, "duty": 0.1}}],
                    convection=[{"name": "bottom", "part": "plate", "side": "z-", "h": 500.0}],
                    cell_mm=1.0, duration_s=20.0, step_s=1.0, scheme="crank-nicolson", mass="lumped",
-                   output_every_s=1.0)
+                   output_every_s=1.0, method="full")
     _, problem = problem_of(d)
     times = np.arange(0.0, 21.0)
     ref = reference_ivp(problem, times, breaks=[10.0], rtol=1e-8, atol=1e-8)  # errors compared are ≥ 0.01 K
@@ -169,7 +169,7 @@ def _fe_model(step: float, mass: str = "lumped", n_steps: int = 60) -> dict:
                       heat_loads=[{"part": "pad", "profile": {"type": "constant", "value": 0.5}}],
                       convection=[{"name": "all", "part": "bar", "side": "exposed", "h": 40.0}],
                       cell_mm=2.0, duration_s=n_steps * step, step_s=step, scheme="forward-euler", mass=mass,
-                      output_every_s=step, initial_c=80.0, ambient_c=20.0)
+                      output_every_s=step, initial_c=80.0, ambient_c=20.0, method="full")
 
 
 @functools.lru_cache(maxsize=None)
@@ -245,7 +245,7 @@ def test_abrupt_ambient_rise_no_overshoot():
                     part("chip", "copper", (4, 4, 1), (2, 2, 1))],
                    convection=[{"name": "all", "part": "plate", "side": "exposed", "h": 2000.0, "ambient_c": amb}],
                    cell_mm=1.0, min_layers=2, duration_s=15.0, step_s=1.0, scheme="backward-euler", mass="lumped",
-                   output_every_s=1.0, initial_c=20.0, ambient_c=20.0)
+                   output_every_s=1.0, initial_c=20.0, ambient_c=20.0, method="full")
     _, problem = problem_of(d)
     k = problem.conductivity.tocoo()
     off = k.row != k.col

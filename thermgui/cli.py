@@ -39,7 +39,7 @@ def main(argv=None) -> int:
     if args.command == "solve":
         try:
             return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver, method=args.method,
-                                   tolerance_k=args.tolerance)
+                                   tolerance_k=args.tolerance, fields=args.fields)
         except KeyboardInterrupt:
             sys.stderr.write("interrupted\n")
             return 1

@@ -79,7 +79,7 @@ def test_run_scrub_mark_export_reopen(qtbot, tmp_path, cli_peaks, open_main_wind
     assert res.status.bar.value() == 1000
     # results kept next to the model
     folder = results_folder_for(path)
-    assert (folder / "peaks.csv").is_file() and (folder / "field.pvd").is_file()
+    assert (folder / "peaks.csv").is_file() and (folder / "field.vtkhdf").is_file()
     assert win.document.model.model_dump() == before
 
     # scrub: slider to output 2 → the actor's scalars are the stored snapshot at those points
@@ -245,7 +245,9 @@ def test_reduced_basis_run_matches_the_command_line(qtbot, tmp_path, cli_peaks, 
 
 
 def test_stop_cancels_between_steps(qtbot, tmp_path, open_main_window):
-    win, _ = make_window(open_main_window, chip_on_plate(duration_s=20000.0, step_s=1.0, output_every_s=50.0), tmp_path)
+    # stepped (not "auto": the reduced basis would finish this in a second, before Stop is pressed)
+    win, _ = make_window(open_main_window, chip_on_plate(duration_s=20000.0, step_s=1.0, output_every_s=50.0,
+                                                         method="full"), tmp_path)
     res = win.results
     res.start_run()
     qtbot.waitUntil(lambda: res.store is not None and res.store.n_frames >= 3 and res.timeline.isEnabled()
@@ -317,3 +319,26 @@ def test_first_picture_cuts_a_closed_housing_to_show_the_hottest_part(qtbot, tmp
     win2 = open_main_window(path)
     assert win2.results.store is not None and win2.results.cut_choice.currentText() == "Cut across z"
     assert "view cut at z =" in win2.results.status.detail.text()
+
+
+def test_opens_folders_written_before_and_says_when_there_is_no_field(qtbot, tmp_path, open_main_window):
+    """A folder in the earlier layout (field.pvd + whole-mesh .vtu frames) shows the same frames as
+    the new one; a run solved with ``--fields none`` is refused with a message saying so."""
+    from test_field_output import _legacy_copy
+
+    win, path = make_window(open_main_window, chip_on_plate(), tmp_path)
+    res = win.results
+    assert solve_to_folder(path, tmp_path / "new", quiet=True) == 0
+    _legacy_copy(tmp_path / "new", tmp_path / "old")
+    assert win.open_results(tmp_path / "new") is not None
+    new = res.store
+    assert win.open_results(tmp_path / "old") is not None
+    assert res.store is not new and res.store.n_frames == new.n_frames > 1
+    for i in range(new.n_frames):
+        np.testing.assert_array_equal(res.store.frame(i), new.frame(i))
+    res.timeline.set_index(2)
+    assert np.array_equal(res.view.shown_scalars(), new.frame(2)[res.view.point_ids])
+    assert solve_to_folder(path, tmp_path / "bare", quiet=True, fields="none") == 0
+    assert win.open_results(tmp_path / "bare") is None
+    text = res.status.message.text()
+    assert "no temperature field" in text and "--fields none" in text

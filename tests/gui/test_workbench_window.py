@@ -266,8 +266,9 @@ def test_study_settings_form(main_window, artifacts):
     assert w.document.model.run.tolerance_k == 0.05
     w.actions_["undo"].trigger()
     w.actions_["undo"].trigger()
-    assert w.document.model.run.method in (None, "full") and w.document.model.run.tolerance_k is None
-    assert f.method.currentData() == "full"
+    assert w.document.model.run.method in (None, "auto") and w.document.model.run.tolerance_k is None
+    assert f.method.currentData() == "auto"  # absent in the file = automatic
+    assert "if reduced" in f.numbers[("run", "tolerance_k")].edit.placeholderText()
 
 
 def test_marks_in_tree_and_view(main_window):

@@ -259,7 +259,8 @@ class StudyForm(ItemForm):
     kind = "study"
     SCHEME_LABELS = {"backward-euler": "backward Euler (robust)", "crank-nicolson": "Crank–Nicolson (accurate)",
                      "forward-euler": "forward Euler (explicit)"}
-    METHOD_LABELS = {"full": "time steps on the full model", "reduced": "reduced basis (fast)"}
+    METHOD_LABELS = {"auto": "automatic (by predicted cost)", "full": "time steps on the full model",
+                     "reduced": "reduced basis (fast)"}
 
     def __init__(self, panel):
         super().__init__(panel)
@@ -293,9 +294,10 @@ class StudyForm(ItemForm):
         self.method = QComboBox()
         for m, text in self.METHOD_LABELS.items():
             self.method.addItem(text, m)
-        self.method.setToolTip("Reduced basis: one factorization and a few dozen solves, integrated exactly; "
-                               "its error is kept within the tolerance (0.1 K if empty). Fastest for long "
-                               "profiles with many load changes.")
+        self.method.setToolTip("Automatic: the reduced basis when it is predicted to cost less than half of "
+                               "time stepping, else time steps. Reduced basis: one factorization and a few dozen "
+                               "solves, integrated exactly; its error is kept within the tolerance (0.1 K if "
+                               "empty). Fastest for long profiles with many load changes.")
         self.method.activated.connect(lambda i: self.commit(("run", "method"), self.method.itemData(i),
                                                             "solution method"))
         L.addRow("Time scheme", self.scheme)
@@ -322,9 +324,10 @@ class StudyForm(ItemForm):
             f.set_value(node)
         self.scheme.setCurrentIndex(self.scheme.findData(d["run"]["scheme"]))
         self.mass.setCurrentIndex(self.mass.findData(d["run"]["mass"]))
-        self.method.setCurrentIndex(self.method.findData(d["run"].get("method") or "full"))
-        reduced = d["run"].get("method") == "reduced"
-        self.numbers[("run", "tolerance_k")].edit.setPlaceholderText("0.1 (default)" if reduced else "fixed steps")
+        self.method.setCurrentIndex(self.method.findData(d["run"].get("method") or "auto"))
+        method = d["run"].get("method") or "auto"
+        self.numbers[("run", "tolerance_k")].edit.setPlaceholderText(
+            {"reduced": "0.1 (default)", "full": "fixed steps"}.get(method, "0.1 if reduced, else fixed steps"))
 
     def commit(self, path, value, label):
         d = self.doc.model_dict()

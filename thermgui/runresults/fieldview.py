@@ -31,11 +31,28 @@ class Display:
 def build_display(points_mm: np.ndarray, tets: np.ndarray, cut=None) -> Display:
     """The drawable surface of a tetrahedral mesh. Pure data work, safe on a worker thread
     (VTK's filters release the GIL), so the window stays responsive for big meshes."""
-    cells = np.hstack([np.full((len(tets), 1), 4, dtype=np.int64), np.asarray(tets, dtype=np.int64)])
-    celltypes = np.full(len(tets), pv.CellType.TETRA, dtype=np.uint8)
-    grid = pv.UnstructuredGrid(cells.ravel(), celltypes, np.asarray(points_mm, dtype=float))
+    grid = tet_grid(points_mm, tets)
     surf, ids = surface_of(grid, cut)
     return Display(grid, surf, ids)
+
+
+def tet_grid(points_mm: np.ndarray, tets: np.ndarray) -> pv.UnstructuredGrid:
+    """A grid of tetrahedra sharing the arrays' memory (VTK keeps a reference to them): at 1M
+    nodes 0.02 s, against about 1 s through pyvista's constructors, which copy."""
+    from vtkmodules.util.numpy_support import numpy_to_vtk, numpy_to_vtkIdTypeArray
+    from vtkmodules.vtkCommonCore import vtkPoints
+    from vtkmodules.vtkCommonDataModel import vtkCellArray, vtkUnstructuredGrid
+
+    conn = np.ascontiguousarray(tets, dtype=np.int64).ravel()
+    offsets = np.arange(0, len(conn) + 1, 4, dtype=np.int64)
+    cells = vtkCellArray()
+    cells.SetData(numpy_to_vtkIdTypeArray(offsets, deep=False), numpy_to_vtkIdTypeArray(conn, deep=False))
+    points = vtkPoints()
+    points.SetData(numpy_to_vtk(np.ascontiguousarray(points_mm, dtype=float), deep=False))
+    grid = vtkUnstructuredGrid()
+    grid.SetPoints(points)
+    grid.SetCells(int(pv.CellType.TETRA), cells)
+    return pv.wrap(grid)
 
 
 def surface_of(grid: pv.UnstructuredGrid, cut=None) -> tuple[pv.PolyData, np.ndarray]:
@@ -45,12 +62,13 @@ def surface_of(grid: pv.UnstructuredGrid, cut=None) -> tuple[pv.PolyData, np.nda
     else:
         a = AXES[cut[0]]
         pts = grid.points
-        tets = grid.cells.reshape(-1, 5)[:, 1:]
-        centre = pts[tets, a].mean(axis=1)
-        lo, hi = pts[:, a].min(), pts[:, a].max()
-        keep = np.nonzero(centre <= lo + cut[1] * (hi - lo))[0]
+        tets = grid.cell_connectivity.reshape(-1, 4)  # all tetrahedra (no legacy-format copy)
+        col = np.ascontiguousarray(pts[:, a])
+        centre4 = np.take(col, tets).sum(axis=1)  # 4 × the cell centre's coordinate (a 1-D gather is fast)
+        lo, hi = col.min(), col.max()
+        keep = np.flatnonzero(centre4 <= 4.0 * (lo + cut[1] * (hi - lo)))
         if len(keep) == 0:
-            keep = np.array([int(np.argmin(centre))])
+            keep = np.array([int(np.argmin(centre4))])
         sub = grid.extract_cells(keep)
         sub_ids = np.asarray(sub.point_data["vtkOriginalPointIds"])
     surf = sub.extract_surface(pass_pointid=True, pass_cellid=False, algorithm="dataset_surface")
@@ -105,7 +123,7 @@ class FieldView:
         g = self.grid
         return (g is not None and self.actor is not None and g.n_points == grid.n_points
                 and g.n_cells == grid.n_cells and np.array_equal(g.points, grid.points)
-                and np.array_equal(g.cells, grid.cells))
+                and np.array_equal(g.cell_connectivity, grid.cell_connectivity))
 
     def set_cut(self, axis: str | None, fraction: float = 0.5) -> None:
         """Keep the cells whose centres lie below ``fraction`` of the extent along ``axis`` (None: all)."""

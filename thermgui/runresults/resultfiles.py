@@ -12,6 +12,7 @@ from pathlib import Path
 from PySide6.QtWidgets import QFileDialog
 
 from solver.errors import ModelError
+from solver.fieldseries import FIELD_FILE
 from solver.runfolder import is_run_folder, load_run
 
 from .store import ResultsStore, results_folder_for
@@ -25,6 +26,11 @@ class ResultFiles:
             return None
         try:
             run = load_run(folder)
+            if not run.has_fields:
+                self.status.show_error("These results have no temperature field to show.",
+                                       f"{folder}: the run was solved without fields (--fields none); "
+                                       "peaks.csv and history.csv in the folder hold its table and curves.")
+                return None
             store = ResultsStore.from_finished(run)
         except ModelError as e:
             self.status.show_error("These results cannot be opened.", e.describe())
@@ -36,12 +42,18 @@ class ResultFiles:
         self._results_model = run.model_dict
         self.stale = self._model_differs()
         self.status.clear_error()
+        # decide the revealing cut before the geometry, so a big mesh's surface is extracted once
+        shown, self.results_shown = self.results_shown, False  # (nothing is redrawn meanwhile)
+        try:
+            cut_note = self._auto_cut()
+        finally:
+            self.results_shown = shown
         self.view.set_geometry(store.points_mm, store.tets)
         self.table.set_rows(store.peak_rows)
         self.export_action.setEnabled(True)
         self.status.started(f"Results of {Path(folder).name}", store.duration_s)
         self.status.finished(f"Opened {store.n_frames} outputs from {Path(folder).name} (not solved again)"
-                             + self._auto_cut())
+                             + cut_note)
         self.status.detail.setToolTip(str(folder))
         self.timeline.blockSignals(True)
         self.timeline.set_times(store.times, store.duration_s)
@@ -107,7 +119,8 @@ def check_results_folder(folder: Path) -> None:
     """OSError unless ``folder`` is absent, empty, or holds results of ours (safe to replace)."""
     if not folder.exists():
         return
-    if not folder.is_dir() or not (is_run_folder(folder) or (folder / "field").is_dir() or not any(folder.iterdir())):
+    ours = is_run_folder(folder) or (folder / FIELD_FILE).is_file() or (folder / "field").is_dir()  # a stopped run's
+    if not folder.is_dir() or not (ours or not any(folder.iterdir())):
         raise OSError(f"{folder} exists and does not look like a results folder; move it away first")
 
 

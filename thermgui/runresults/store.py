@@ -73,6 +73,8 @@ class ResultsStore:
         cols = [run.history_header.index(f"max:{n}") for n in names]
         for i, t in enumerate(run.times):
             store.add_frame(float(t), run.field(i), run.history[i, cols] if i < len(run.history) else None)
+        if run.series is not None:
+            run.series.close()  # every frame is in memory now; do not keep the file open
         store.peak_rows = [[r.get(c, "") for c in PEAK_COLUMNS] for r in run.peaks]
         store.complete = True
         return store
