@@ -9,7 +9,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from PySide6.QtCore import QSize, Qt
-from PySide6.QtGui import QAction, QKeySequence
+from PySide6.QtGui import QAction, QGuiApplication, QKeySequence
 from PySide6.QtWidgets import (QDoubleSpinBox, QLabel, QMainWindow, QSplitter, QStyle, QToolBar, QWidget,
                                QDockWidget)
 
@@ -31,10 +31,14 @@ KIND_WORDS = {"parts": "part", "heat_loads": "heat load", "convection": "convect
 
 class MainWindow(QMainWindow):
     def __init__(self, model=None, path: Path | None = None, prompts=None, auto_update: bool | float = False,
-                 settings=None, recovery_dir: Path | None = None, autosave_s: float | None = None):
+                 settings=None, recovery_dir: Path | None = None, autosave_s: float | None = None,
+                 size: tuple[int, int] | None = None):
         super().__init__()
         self.setWindowTitle(APP_NAME)
-        self.resize(1360, 840)
+        self._fixed_size = size  # tests ask for a fixed size; None: the screen's available area
+        self.first_start = True  # no window layout remembered yet (set by _restore_layout)
+        avail = self._available_area()
+        self.resize(*(size or (min(1360, avail.width()), min(840, avail.height()))))
         self.setAcceptDrops(True)  # drop a model file to open it
         self.prompts = prompts if prompts is not None else DialogPrompts(self)
         self.document = ModelDocument(model, path, self)
@@ -463,13 +467,40 @@ class MainWindow(QMainWindow):
                                             f"electronics enclosures: peak temperatures, when, and margin to "
                                             f"rating.\n\n{CAUTION}")
 
+    def _available_area(self):
+        screen = self.screen() or QGuiApplication.primaryScreen()
+        return screen.availableGeometry()
+
     def _restore_layout(self) -> None:
         s = self.fileops.settings
         geometry, state = s.value("window/geometry"), s.value("window/state")
+        self.first_start = geometry is None
         if geometry is not None:
             self.restoreGeometry(geometry)
+        elif self._fixed_size is None:
+            self.setGeometry(self._available_area())
         if state is not None:
             self.restoreState(state)
+
+    def show_first_time(self) -> None:
+        """Show the window: maximised over the screen's available area on the first start (then
+        the docks get sizes that leave the 3D view most of the window), as it was left afterwards."""
+        if self.first_start and self._fixed_size is None:
+            self.setGeometry(self._available_area())
+            self.showMaximized()
+        else:
+            self.show()
+        if self.first_start:
+            self.fit_docks()
+
+    def fit_docks(self) -> None:
+        """Dock sizes for the window's present size: the model panel about a quarter of the width
+        (300-420 px), the results under the 3D view about a third of the height."""
+        w, h = self.width(), self.height()
+        self.resizeDocks([self.model_dock], [int(min(420, max(300, 0.24 * w)))], Qt.Horizontal)
+        hook = getattr(self, "fit_result_docks", None)
+        if callable(hook):
+            hook(w, h)
 
     def _save_layout(self) -> None:
         s = self.fileops.settings

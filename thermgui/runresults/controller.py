@@ -74,8 +74,9 @@ class ResultsController(ResultFiles, QObject):
         w = self.window
         self.status = RunStatus()
         self.timeline = TimelineBar()
-        self.rescale_box = QCheckBox("Rescale colours to each frame")
-        self.rescale_box.setToolTip("Off: one colour scale over the whole run, so frames compare")
+        self.rescale_box = QCheckBox("Rescale per frame")
+        self.rescale_box.setToolTip("On: the colour scale spans each frame alone. Off: one colour scale over the "
+                                    "whole run, so frames compare")
         self.cut_choice = QComboBox()
         for label, _ in CUT_CHOICES:
             self.cut_choice.addItem(label)
@@ -85,19 +86,20 @@ class ResultsController(ResultFiles, QObject):
         self.cut_slider.setValue(50)
         self.cut_slider.setEnabled(False)
         self.cut_slider.setToolTip("Position of the cut plane (share of the extent kept)")
-        self.cut_slider.setMaximumWidth(160)
-        options = QHBoxLayout()
+        self.cut_slider.setMaximumWidth(120)
+        options = QHBoxLayout()  # one row: time slider, then how the field is drawn
+        options.addWidget(self.timeline, 1)
+        options.addSpacing(12)
         options.addWidget(self.rescale_box)
-        options.addSpacing(16)
+        options.addSpacing(12)
         options.addWidget(QLabel("Look inside:"))
         options.addWidget(self.cut_choice)
         options.addWidget(self.cut_slider)
-        options.addStretch(1)
         run_box = QWidget()
         lay = QVBoxLayout(run_box)
-        lay.setContentsMargins(6, 4, 6, 4)
+        lay.setContentsMargins(6, 2, 6, 2)
+        lay.setSpacing(3)
         lay.addWidget(self.status)
-        lay.addWidget(self.timeline)
         lay.addLayout(options)
         lay.addWidget(self.status.caution)
         self.chart = PartChart()
@@ -114,6 +116,7 @@ class ResultsController(ResultFiles, QObject):
         if self.run_dock is not None and self.results_dock is not None and hasattr(w, "splitDockWidget"):
             w.splitDockWidget(self.run_dock, self.results_dock, Qt.Vertical)  # run bar above, full width
             w.resizeDocks([self.run_dock, self.results_dock], [175, 250], Qt.Vertical)
+            w.fit_result_docks = self.fit_docks
         self.timeline.indexChanged.connect(self.show_index)
         self.rescale_box.toggled.connect(lambda _: self.show_index(self.timeline.index))
         self.cut_choice.currentIndexChanged.connect(self._on_cut)
@@ -122,6 +125,13 @@ class ResultsController(ResultFiles, QObject):
         self.chart.timeClicked.connect(self._on_chart_click)
         self.table.exportRequested.connect(self._ask_export)
         self.table.partsSelected.connect(self._on_table_parts)
+
+    def fit_docks(self, width: int, height: int) -> None:
+        """Heights of the two result docks for a window ``height`` px tall: the run bar as tall as it
+        needs, chart and table about 28 % of the window (190-360 px); the 3D view keeps the rest."""
+        run_h = self.run_dock.widget().sizeHint().height() + 24
+        res_h = int(min(360, max(190, 0.28 * height)))
+        self.window.resizeDocks([self.run_dock, self.results_dock], [run_h, res_h], Qt.Vertical)
 
     def _build_actions(self) -> None:
         w = self.window

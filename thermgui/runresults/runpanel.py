@@ -7,9 +7,8 @@ from PySide6.QtWidgets import QHBoxLayout, QLabel, QProgressBar, QSizePolicy, QV
 
 from .timefmt import format_duration, format_time
 
-CAUTION_TEXT = ("Engineering estimates from a conduction model with assumed convection coefficients: confirm "
-                "them by measurement on real hardware, and defer to the applicable safety standards, codes and "
-                "licensed practice before relying on them.")
+CAUTION_TEXT = ("Engineering estimates (conduction model, assumed convection): confirm by measurement on real "
+                "hardware; defer to the applicable safety standards, codes and licensed practice.")
 ERROR_STYLE = ("QLabel { background: #fdecee; color: #7a0c1f; border: 1px solid #d0103a; border-radius: 3px;"
                " padding: 4px; }")
 CAUTION_STYLE = ("QLabel { background: #fff6dc; color: #4a3b00; border: 1px solid #e0b000; border-radius: 3px;"
@@ -61,7 +60,9 @@ class RunStatus(QWidget):
         self.caution = QLabel("⚠ " + CAUTION_TEXT)
         self.caution.setWordWrap(True)
         self.caution.setStyleSheet(CAUTION_STYLE)
-        self.caution.setMinimumHeight(2 * self.caution.fontMetrics().lineSpacing() + 10)
+        self.caution.setToolTip("Results are engineering estimates from a conduction model with assumed convection "
+                                "coefficients. Confirm them by measurement on real hardware, and defer to the "
+                                "applicable safety standards, codes and licensed practice before relying on them.")
         top = QHBoxLayout()
         top.addWidget(self.bar, 1)
         top.addWidget(self.detail, 2)
