@@ -45,7 +45,7 @@ class ResultsController(ResultFiles, QObject):
         self._live = None  # (time_s, field) newest preview between outputs
         self._reveal_pending = False  # a run has started: show the field with its first frame
         self._new_outputs = False
-        self._marked: set = set()
+        self._marked = (frozenset(), frozenset())  # (over, at risk) marked in tree and view
         self._chart_parts: list[str] | None = None  # None: default choice
         self._user_cut = False  # the user has chosen a cut (or Whole model) in "Look inside"
         self._auto_cutting = False
@@ -111,6 +111,7 @@ class ResultsController(ResultFiles, QObject):
         split.addWidget(self.table)
         split.setStretchFactor(0, 2)
         split.setStretchFactor(1, 3)
+        self.results_split = split
         self.run_dock = w.add_dock(run_box, Qt.BottomDockWidgetArea, "Run and time")
         self.results_dock = w.add_dock(split, Qt.BottomDockWidgetArea, "Temperatures and peaks")
         if self.run_dock is not None and self.results_dock is not None and hasattr(w, "splitDockWidget"):
@@ -132,6 +133,15 @@ class ResultsController(ResultFiles, QObject):
         run_h = self.run_dock.widget().sizeHint().height() + 24
         res_h = int(min(360, max(190, 0.28 * height)))
         self.window.resizeDocks([self.run_dock, self.results_dock], [run_h, res_h], Qt.Vertical)
+        self.fit_table()
+
+    def fit_table(self) -> None:
+        """Give the peak table the width its columns need (the chart keeps at least 320 px)."""
+        total = sum(self.results_split.sizes())
+        if total <= 0:
+            return
+        table = min(self.table.needed_width(), max(total // 2, total - 320))
+        self.results_split.setSizes([total - table, table])
 
     def _build_actions(self) -> None:
         w = self.window
@@ -310,7 +320,8 @@ class ResultsController(ResultFiles, QObject):
         self._live = None
         self._new_outputs = True
         self._live_refresh()
-        self.table.set_rows(s.peak_rows)
+        self.table.set_rows(s.peak_rows, s.duration_s)
+        self.fit_table()
         self.export_action.setEnabled(True)
         over = s.ever_over()
         note = f"; over rating: {', '.join(sorted(over))}" if over else "; no part over its rating"
@@ -364,7 +375,7 @@ class ResultsController(ResultFiles, QObject):
         if on and self.store is not None and self.store.n_frames:
             self._show(self.timeline.index, paint=paint)
         elif not on:
-            self._mark(set())
+            self._mark(set(), set())
 
     def show_index(self, i: int) -> None:
         """Draw output ``i``: field, colour range, time, parts over their rating, chart cursor."""
@@ -379,28 +390,36 @@ class ResultsController(ResultFiles, QObject):
         self.view.show_field(s.frame(i), clim, paint=paint)
         t = s.times[i]
         self.view.set_caption(f"t = {format_time(t, s.duration_s)}" + ("   (model changed since)" if self.stale else ""))
-        over = s.over_at(i)
-        self._mark(over)
+        over, at_risk = s.verdicts_at(i)
+        self._mark(over, at_risk)
         self.chart.set_cursor(t)
 
-    def _mark(self, over: set) -> None:
-        """Mark parts over their rating in the view (frames, caption) and in the item list."""
+    def _mark(self, over: set, at_risk: set = frozenset()) -> None:
+        """Mark parts over their rating (red) and at risk (amber) in the view (frames, caption) and
+        in the item list."""
         s = self.store
         w = self.window
         i = self.timeline.index
-        if over and s is not None:
-            bits = [f"{n} {s.part_max[i][s.part_names.index(n)]:.1f} °C > {s.rating(n):g} °C" for n in sorted(over)]
-            self.view.set_over_caption("OVER RATING: " + "; ".join(bits))
-        else:
-            self.view.set_over_caption("")
-        if over == self._marked:
+        lines = []
+        if s is not None and s.n_frames:
+            i = max(0, min(i, s.n_frames - 1))
+            temp = lambda n: s.part_max[i][s.part_names.index(n)]  # noqa: E731
+            if over:
+                lines.append("OVER RATING: " + "; ".join(f"{n} {temp(n):.1f} °C > {s.rating(n):g} °C"
+                                                         for n in sorted(over)))
+            if at_risk:
+                lines.append("AT RISK: " + "; ".join(f"{n} {temp(n):.1f} ± {s.error_k(n):.1f} °C near {s.rating(n):g} °C"
+                                                     for n in sorted(at_risk)))
+        self.view.set_over_caption("\n".join(lines))
+        key = (frozenset(over), frozenset(at_risk))
+        if key == self._marked:
             return
-        self._marked = set(over)
+        self._marked = key
         if hasattr(w.viewport, "highlight_parts"):
-            w.viewport.highlight_parts(set(over))
+            w.viewport.highlight_parts(set(over), set(at_risk))
         tree = getattr(w, "item_tree", None)
         if tree is not None and hasattr(tree, "mark_parts"):
-            tree.mark_parts(set(over))
+            tree.mark_parts(set(over), set(at_risk))
 
     def shown_over(self) -> set:
         """Parts marked over their rating at the shown time."""

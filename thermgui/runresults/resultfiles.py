@@ -37,7 +37,8 @@ class ResultFiles:
         self.stale = self._model_differs()
         self.status.clear_error()
         self.view.set_geometry(store.points_mm, store.tets)
-        self.table.set_rows(store.peak_rows)
+        self.table.set_rows(store.peak_rows, store.duration_s)
+        self.fit_table()
         self.export_action.setEnabled(True)
         self.status.started(f"Results of {Path(folder).name}", store.duration_s)
         self.status.finished(f"Opened {store.n_frames} outputs from {Path(folder).name} (not solved again)"
