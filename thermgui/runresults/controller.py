@@ -162,11 +162,19 @@ class ResultsController(ResultFiles, QObject):
         self.export_action = QAction("&Export Peak Table…", w)
         self.export_action.setEnabled(False)
         self.picture_action = QAction("Save View as &Picture…", w)
+        self.report_action = QAction("Export &Report…", w)
+        self.report_action.setToolTip("Write one self-contained HTML design-review report of the finished run")
+        self.report_action.setEnabled(False)
         for a in (self.run_action, self.stop_action, self.show_action):
             menu.addAction(a)
         menu.addSeparator()
-        for a in (self.open_action, self.export_action):
+        for a in (self.open_action, self.export_action, self.report_action):
             menu.addAction(a)
+        file_menu = w.menus.get("file") if isinstance(getattr(w, "menus", None), dict) else None
+        if file_menu is not None:  # File ▸ Export Report…, above Quit
+            quit_action = next((a for a in file_menu.actions() if a.text().replace("&", "") == "Quit"), None)
+            file_menu.insertAction(quit_action, self.report_action)
+            file_menu.insertSeparator(quit_action)
         if not callable(getattr(w, "save_picture", None)):  # the window may already offer one
             menu.addAction(self.picture_action)
         w.toolbar.addSeparator()
@@ -178,6 +186,7 @@ class ResultsController(ResultFiles, QObject):
         self.open_action.triggered.connect(self._ask_open)
         self.export_action.triggered.connect(self._ask_export)
         self.picture_action.triggered.connect(self._ask_picture)
+        self.report_action.triggered.connect(self._ask_report)
 
     # ------------------------------------------------------------ running
     @property
@@ -260,6 +269,7 @@ class ResultsController(ResultFiles, QObject):
             self._status_bar(f"Warning: {warning}")
         self.table.set_rows(None)
         self.export_action.setEnabled(False)
+        self.report_action.setEnabled(False)
         self.timeline.set_times([], self.store.duration_s)
         self.show_action.setEnabled(True)
         # keep the boxes until the first frame arrives: drawing the empty field now would cost the
@@ -323,6 +333,7 @@ class ResultsController(ResultFiles, QObject):
         self.table.set_rows(s.peak_rows, s.duration_s)
         self.fit_table()
         self.export_action.setEnabled(True)
+        self.report_action.setEnabled(True)
         over = s.ever_over()
         note = f"; over rating: {', '.join(sorted(over))}" if over else "; no part over its rating"
         st = getattr(self, "_stepper", None)
