@@ -29,6 +29,18 @@ KIND_WORDS = {"parts": "part", "heat_loads": "heat load", "convection": "convect
               "materials": "material"}
 
 
+class _FixedTextAction(QAction):
+    """A toolbar action with a fixed word ("Undo"); the command it would undo goes in the tooltip."""
+
+    def __init__(self, icon, word, parent):
+        super().__init__(icon, word, parent)
+        self.word = word
+        self.setToolTip(word)
+
+    def show_command(self, text: str) -> None:
+        self.setToolTip(f"{self.word} {text}" if text else self.word)
+
+
 class MainWindow(QMainWindow):
     def __init__(self, model=None, path: Path | None = None, prompts=None, auto_update: bool | float = False,
                  settings=None, recovery_dir: Path | None = None, autosave_s: float | None = None,
@@ -153,6 +165,20 @@ class MainWindow(QMainWindow):
         redo.setShortcuts([QKeySequence("Ctrl+Shift+Z"), QKeySequence("Ctrl+Y")])
         redo.setIcon(self.style().standardIcon(S.SP_ArrowForward))
         self.actions_["undo"], self.actions_["redo"] = undo, redo
+        # the toolbar's buttons keep a short fixed text (the menu items name the action, and so does
+        # the buttons' tooltip): a text that grows with the action's name pushed the toolbar aside
+        stack = self.document.undo_stack
+        for key, word, icon, go, can, can_changed, text_changed in (
+                ("undo_button", "Undo", S.SP_ArrowBack, stack.undo, stack.canUndo, stack.canUndoChanged,
+                 stack.undoTextChanged),
+                ("redo_button", "Redo", S.SP_ArrowForward, stack.redo, stack.canRedo, stack.canRedoChanged,
+                 stack.redoTextChanged)):
+            short = _FixedTextAction(self.style().standardIcon(icon), word, self)
+            short.triggered.connect(go)
+            short.setEnabled(can())
+            can_changed.connect(short.setEnabled)
+            text_changed.connect(short.show_command)
+            self.actions_[key] = short
         self._act("add_part", "Add &Part", lambda: self.add_item("parts"), "Ctrl+Shift+B", None,
                   "Add a box-shaped part on top of the model")
         self._act("add_load", "Add &Heat Load", lambda: self.add_item("heat_loads"), "Ctrl+Shift+H", None,
@@ -224,7 +250,7 @@ class MainWindow(QMainWindow):
         for k in ("open", "save"):
             tb.addAction(a[k])
         tb.addSeparator()
-        tb.addActions([a["undo"], a["redo"]])
+        tb.addActions([a["undo_button"], a["redo_button"]])
         tb.addSeparator()
         tb.addAction(a["add_part"])
         tb.addAction(a["delete"])

@@ -64,3 +64,86 @@ def test_export_dialogs_start_in_the_model_folder(qtbot, open_main_window, tmp_p
     win.prompts.paths.append("")  # cancelled: nothing written
     res._ask_picture()
     assert Path(win.prompts.messages[-1][2]) == models / "chip-view.png"
+
+
+def test_undo_button_keeps_its_width(main_window):
+    w = main_window
+    button = w.toolbar.widgetForAction(w.actions_["undo_button"])
+    before = (button.sizeHint().width(), w.toolbar.sizeHint().width())
+    i = w.document.model.part_index("radio module")
+    d = w.document.model_dict()
+    d["parts"][i]["size_mm"][2] += 1.0
+    w.document.edit(d, "Set size z of part 'radio module' in the long name of a command")
+    assert w.actions_["undo"].text().startswith("&Undo Set size z")  # the menu item names the command
+    assert button.text() == "Undo" and "Set size z" in button.toolTip()
+    assert (button.sizeHint().width(), w.toolbar.sizeHint().width()) == before
+    assert button.isEnabled()
+    button.click()
+    assert w.document.model.parts[i].size_mm[2] == d["parts"][i]["size_mm"][2] - 1.0
+    assert not button.isEnabled()
+
+
+def test_space_plays_and_step_buttons_show_single_steps(qtbot, open_main_window, tmp_path):
+    from PySide6.QtCore import Qt
+    from PySide6.QtWidgets import QApplication, QStyle
+
+    win = open_main_window(saved_chip(tmp_path))
+    run_to_end(qtbot, win)
+    tl = win.results.timeline
+    tl.set_index(0)
+    win.activateWindow()  # window shortcuts answer in the active window
+    qtbot.waitUntil(lambda: QApplication.activeWindow() is win, timeout=5000)
+    win.viewport.plotter.interactor.setFocus()
+    qtbot.keyClick(win.viewport.plotter.interactor, Qt.Key_Space)
+    assert tl.timer.isActive()
+    qtbot.keyClick(win.viewport.plotter.interactor, Qt.Key_Space)
+    assert not tl.timer.isActive()
+    # a text field with the focus still takes its spaces
+    win.item_tree.select("study", 0)
+    title = win.properties.forms["study"].title
+    title.setFocus()
+    title.end(False)
+    qtbot.keyClick(title, Qt.Key_Space)
+    assert title.text().endswith(" ") and not tl.timer.isActive()
+    st = win.style()
+    img = lambda icon: icon.pixmap(16, 16).toImage()  # noqa: E731
+    assert img(tl.back_button.icon()) == img(st.standardIcon(QStyle.SP_ArrowLeft))
+    assert img(tl.back_button.icon()) != img(st.standardIcon(QStyle.SP_MediaSkipBackward))
+    assert img(tl.forward_button.icon()) != img(st.standardIcon(QStyle.SP_MediaSkipForward))
+
+
+def test_unsaved_runs_leave_no_temp_folders(qtbot, open_main_window):
+    import tempfile
+
+    win = open_main_window(None)
+    win.document.reset(parse_model(chip_on_plate()), None)
+    res = win.results
+    run_to_end(qtbot, win)
+    first = res.store.folder
+    root = first.parent
+    assert Path(tempfile.gettempdir()).resolve() in root.resolve().parents and first.is_dir()
+    assert str(first) in res.status.detail.text()  # the full path, not only the folder's name
+    run_to_end(qtbot, win)
+    assert res.store.folder != first and not root.exists()  # only the newest unsaved run is kept
+    newest = res.store.folder.parent
+    win.shutdown()
+    assert not newest.exists()
+
+
+def test_stale_temp_folders_are_removed(tmp_path, monkeypatch):
+    import os
+    import tempfile
+    import time
+
+    from thermgui.runresults.controller import TEMP_PREFIX, clean_stale_temp_runs
+
+    monkeypatch.setattr(tempfile, "tempdir", str(tmp_path))
+    old, fresh = tmp_path / (TEMP_PREFIX + "old"), tmp_path / (TEMP_PREFIX + "fresh")
+    other = tmp_path / "someone-else"
+    for d in (old, fresh, other):
+        (d / "untitled.results").mkdir(parents=True)
+    week = time.time() - 8 * 86400
+    for p in (old, old / "untitled.results", other, other / "untitled.results"):
+        os.utime(p, (week, week))
+    assert clean_stale_temp_runs() == [old]
+    assert not old.exists() and fresh.exists() and other.exists()

@@ -7,7 +7,9 @@ fills a :class:`~thermgui.runresults.store.ResultsStore` and presents it: field 
 """
 from __future__ import annotations
 
+import shutil
 import tempfile
+import time
 from pathlib import Path
 
 from PySide6.QtCore import QEvent, QObject, Qt, QTimer
@@ -30,6 +32,8 @@ from .worker import RunWorker, start_worker
 LIVE_REDRAW_MS = 300  # shortest pause between live redraws while a run streams frames
 LIVE_DUTY = 0.05  # live redraws aim at this share of the wall time (the solve shares the CPU) ...
 LIVE_LONGEST_MS = 10000  # ... but the view is refreshed at least this often while a run streams
+TEMP_PREFIX = "thermgui-run-"  # temporary results folders of unsaved models
+STALE_TEMP_S = 7 * 86400  # such folders left behind by a session that ended abnormally go after a week
 CUT_CHOICES = [("Whole model", None), ("Cut across x", "x"), ("Cut across y", "y"), ("Cut across z", "z")]
 
 
@@ -58,6 +62,8 @@ class ResultsController(ResultFiles, QObject):
         self._redraw.timeout.connect(self._live_refresh)
         self._results_model: dict | None = None  # the model dict the shown results were computed for
         self._checked_path = None
+        self._temp_roots: list[Path] = []
+        clean_stale_temp_runs()
         doc = window.document
         if hasattr(doc, "changed"):
             doc.changed.connect(self._on_model_changed)
@@ -194,11 +200,25 @@ class ResultsController(ResultFiles, QObject):
         return self.thread is not None
 
     def results_folder(self) -> Path:
-        """``<model stem>.results`` beside the model file, or a fresh temporary folder if unsaved."""
+        """``<model stem>.results`` beside the model file, or a fresh temporary folder if unsaved
+        (the previous one of this window is removed: only the newest unsaved run is kept, and it
+        goes when the window closes)."""
         path = getattr(self.window.document, "path", None)
         if path:
             return results_folder_for(path)
-        return Path(tempfile.mkdtemp(prefix="thermgui-run-")) / "untitled.results"
+        self.remove_temp_folders()
+        root = Path(tempfile.mkdtemp(prefix=TEMP_PREFIX))
+        self._temp_roots.append(root)
+        return root / "untitled.results"
+
+    def remove_temp_folders(self) -> None:
+        """Delete the temporary results folders of this window's unsaved runs."""
+        shown = getattr(self.store, "folder", None)
+        for root in list(self._temp_roots):
+            if self.running and shown is not None and root in Path(shown).parents:
+                continue
+            shutil.rmtree(root, ignore_errors=True)
+            self._temp_roots.remove(root)
 
     def start_run(self) -> bool:
         """Start solving the document's model on a worker thread; False if it could not start."""
@@ -251,11 +271,13 @@ class ResultsController(ResultFiles, QObject):
         return self.thread.wait(timeout_ms)
 
     def shutdown(self) -> None:
-        """Stop a run in progress and wait for its thread (call before the window goes)."""
+        """Stop a run in progress and wait for its thread (call before the window goes); removes
+        the temporary folders of unsaved runs."""
         if self.running:
             self.stop_run()
             self.wait()
             self._on_thread_finished()
+        self.remove_temp_folders()
 
     def _on_prepared(self, session, prepared) -> None:
         self.store, display = prepared
@@ -339,8 +361,10 @@ class ResultsController(ResultFiles, QObject):
         st = getattr(self, "_stepper", None)
         if st is not None and st.method == "reduced" and st.reduced_info is not None:
             note += f". Solved by a {st.reduced_info.describe()}"
-        self.status.finished(f"Finished: {s.n_frames} outputs, kept in {s.folder.name}{note}"
-                             + self._auto_cut())
+        where = str(s.folder)
+        if any(r in s.folder.parents for r in self._temp_roots):
+            where += " (temporary: removed when the window closes; save the model to keep results beside it)"
+        self.status.finished(f"Finished: {s.n_frames} outputs, kept in {where}{note}" + self._auto_cut())
         self.status.detail.setToolTip(str(s.folder))
         self.show_index(self.timeline.index)
 
@@ -540,3 +564,23 @@ class ResultsController(ResultFiles, QObject):
         if obj is self.window and event.type() == QEvent.Close:
             self.shutdown()
         return False
+
+
+def clean_stale_temp_runs(max_age_s: float = STALE_TEMP_S) -> list[Path]:
+    """Remove temporary results folders of unsaved runs untouched for ``max_age_s`` seconds (left
+    behind by sessions that ended abnormally); returns the folders removed."""
+    gone = []
+    now = time.time()
+    try:
+        roots = list(Path(tempfile.gettempdir()).glob(TEMP_PREFIX + "*"))
+    except OSError:
+        return gone
+    for root in roots:
+        try:
+            newest = max([root.stat().st_mtime] + [p.stat().st_mtime for p in root.rglob("*")])
+        except OSError:
+            continue
+        if root.is_dir() and now - newest > max_age_s:
+            shutil.rmtree(root, ignore_errors=True)
+            gone.append(root)
+    return gone

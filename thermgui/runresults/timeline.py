@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 from PySide6.QtCore import Qt, QTimer, Signal
+from PySide6.QtGui import QKeySequence, QShortcut
 from PySide6.QtWidgets import QHBoxLayout, QLabel, QSlider, QStyle, QToolButton, QWidget
 
 from .timefmt import format_time
@@ -17,10 +18,11 @@ class TimelineBar(QWidget):
         self._times: list[float] = []
         self._span = 0.0
         st = self.style()
-        self.back_button = self._button(st.standardIcon(QStyle.SP_MediaSkipBackward), "One output back (,)")
+        # single arrows for single steps (the "skip to start / end" icons promised a jump)
+        self.back_button = self._button(st.standardIcon(QStyle.SP_ArrowLeft), "One output back (,)")
         self.play_button = self._button(st.standardIcon(QStyle.SP_MediaPlay), "Play / pause (Space)")
         self.play_button.setCheckable(True)
-        self.forward_button = self._button(st.standardIcon(QStyle.SP_MediaSkipForward), "One output forward (.)")
+        self.forward_button = self._button(st.standardIcon(QStyle.SP_ArrowRight), "One output forward (.)")
         self.back_button.setShortcut(Qt.Key_Comma)
         self.forward_button.setShortcut(Qt.Key_Period)
         self.slider = QSlider(Qt.Horizontal)
@@ -42,6 +44,10 @@ class TimelineBar(QWidget):
         self.back_button.clicked.connect(lambda: self.step(-1))
         self.forward_button.clicked.connect(lambda: self.step(1))
         self.play_button.toggled.connect(self.set_playing)
+        # Space plays / pauses anywhere in the window while there are results (a text field that
+        # has the focus still takes its spaces: it claims the key first)
+        self.space = QShortcut(QKeySequence(Qt.Key_Space), self, context=Qt.WindowShortcut)
+        self.space.activated.connect(lambda: self.set_playing(not self.timer.isActive()))
         self.setEnabled(False)
 
     def _button(self, icon, tip):
