@@ -147,3 +147,87 @@ def test_stale_temp_folders_are_removed(tmp_path, monkeypatch):
         os.utime(p, (week, week))
     assert clean_stale_temp_runs() == [old]
     assert not old.exists() and fresh.exists() and other.exists()
+
+
+def covered_chip() -> dict:
+    """Invented scenario: the chip on its plate under a cover plate, so from outside only the
+    cover shows (the chip is hidden inside the model's bounding box)."""
+    d = chip_on_plate(duration_s=300.0, step_s=1.0, output_every_s=5.0)
+    d["parts"].append({"name": "cover", "material": "aluminium-6061", "origin_mm": [0, 0, 8],
+                       "size_mm": [40, 30, 2]})
+    d["convection"].append({"name": "cover top", "part": "cover", "side": "z+", "h": 8.0})
+    return d
+
+
+def test_live_view_cut_one_time_and_colour_range(qtbot, open_main_window, tmp_path):
+    path = tmp_path / "covered.json"
+    save_model(parse_model(covered_chip()), path)
+    win = open_main_window(path)
+    res = win.results
+    seen = []
+    original = res._live_refresh
+
+    def recording():
+        original()
+        if res.running and res.results_shown:
+            seen.append({"cut": res.view.cut, "choice": res.cut_choice.currentText(),
+                         "caption": res.view.caption_text, "label": res.timeline.label.text(),
+                         "bar": res.status.bar.format(), "clim": res.view.colour_range,
+                         "zmax": float(res.store.points_mm[res.view.point_ids, 2].max()),
+                         "hottest": max(float(f.max()) for f in res.store.frames)})
+
+    res._live_refresh = recording
+    res._redraw.timeout.disconnect()
+    res._redraw.timeout.connect(res._live_refresh)
+    run_to_end(qtbot, win)
+    assert seen, "no live frame was drawn while running"
+    first = seen[0]
+    # cut across z from the first live frame, just above the hidden chip (top at z = 5 mm; cells 3 mm)
+    assert first["cut"] is not None and first["cut"][0] == "z" and first["choice"] == "Cut across z"
+    assert first["zmax"] < 8.0  # the cover (z 8-10 mm) is not drawn
+    for s in seen:
+        # one time: the view's caption and the slider's label give the same time; the bar none
+        t_caption = s["caption"].split("   ")[0].replace(" (computing)", "")
+        assert s["label"].startswith(t_caption), s
+        assert "t =" not in s["bar"]
+        # the cool end fixed at the starting temperature, the hot end following the run
+        lo, hi = s["clim"]
+        assert lo == pytest.approx(25.0, abs=1e-3) and hi >= lo + 5.0 - 1e-6
+        assert hi >= s["hottest"] - 1e-3
+    # after the run the cut stays (the hot spot is still hidden) and the status says where it is
+    assert res.view.cut == first["cut"] and "view cut at z" in res.status.detail.text()
+
+
+def test_chart_empty_state_merged_limits_and_emphasis(qtbot, open_main_window, tmp_path):
+    import numpy as np
+
+    from thermgui.runresults.chart import EMPTY_TEXT
+
+    d = chip_on_plate(duration_s=600.0, step_s=5.0, output_every_s=60.0)
+    d["parts"][0]["rated_c"] = 40.0  # plate and chip share one rating
+    path = tmp_path / "chip.json"
+    save_model(parse_model(d), path)
+    win = open_main_window(path)
+    chart = win.results.chart
+    # before any run: a sentence, no empty 0-1 axes
+    assert chart.is_empty and chart.empty_text.toPlainText() == EMPTY_TEXT
+    assert not chart.plotItem.getAxis("left").isVisible() and not chart.plotItem.getAxis("bottom").isVisible()
+    run_to_end(qtbot, win)
+    assert not chart.is_empty and chart.plotItem.getAxis("left").isVisible()
+    # equal ratings: one line, one label naming both parts
+    assert set(chart.limits) == {"plate", "chip"} and chart.limits["plate"] is chart.limits["chip"]
+    assert list(chart.limit_lines) == [40.0]
+    assert "plate" in chart.limit_lines[40.0].label.toPlainText() and "chip" in chart.limit_lines[40.0].label.toPlainText()
+    # both are over: drawn heavier than a curve that is not (foot, shown on its own is ok-width)
+    assert chart.curves["chip"].opts["pen"].widthF() > 2.5
+    win.results.set_chart_parts(["foot"])
+    assert chart.curves["foot"].opts["pen"].widthF() < 2.5
+    # the error band, once the peak table carries one: shaded between peak ± error
+    s = win.results.store
+    k = s.peak_rows[0].__len__() - 1
+    for r in s.peak_rows:
+        r[k] = "2.00"
+    win.results.set_chart_parts([])
+    lower, upper, _ = chart.bands["chip"]
+    y = chart.curves["chip"].getData()[1]
+    assert np.allclose(upper.getData()[1] - y, 2.0) and np.allclose(y - lower.getData()[1], 2.0)

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import shutil
 import tempfile
+
+import numpy as np
 import time
 from pathlib import Path
 
@@ -17,7 +19,9 @@ from PySide6.QtGui import QAction, QKeySequence
 from PySide6.QtWidgets import (QCheckBox, QComboBox, QHBoxLayout, QLabel, QSizePolicy, QSlider, QSplitter,
                                QStyle, QVBoxLayout, QWidget)
 
-from .autocut import hottest_spot, revealing_cut_z
+from solver.results import PEAK_COLUMNS
+
+from .autocut import box_visible, hottest_spot, likely_hot_spot, revealing_cut_z
 from .chart import PartChart
 from .fieldview import FieldView, build_display
 from .messages import item_for_path
@@ -235,6 +239,10 @@ class ResultsController(ResultFiles, QObject):
         self.status.preparing("Meshing and assembling the model…")
         self._pending_model = model.to_json_dict()
         cut = self.view.cut
+        # unless the user chose a cut: cut from the first frame where the hottest part will be
+        # hidden inside (the heated part with the highest power density), so the live view shows it
+        hot = None if self._user_cut else likely_hot_spot(model)
+        min_fraction = self.cut_slider.minimum() / 100
 
         cleared = []
 
@@ -243,7 +251,14 @@ class ResultsController(ResultFiles, QObject):
                 clear_old_results(out_dir)  # only now: a refused run leaves the earlier results alone
                 cleared.append(True)
             store = ResultsStore.for_problem(session.problem, session.out_dir)
-            return store, build_display(store.points_mm, store.tets, cut)
+            use, auto = cut, None
+            bounds = store.part_bounds_mm.get(hot[0]) if hot is not None else None
+            if bounds is not None and not box_visible(bounds, store.points_mm):
+                found = revealing_cut_z(hot[1], store.points_mm, bounds, min_fraction=min_fraction)
+                if found is not None:
+                    auto = (hot[0], found)
+                    use = ("z", found[0])
+            return store, build_display(store.points_mm, store.tets, use), auto
 
         self.worker = RunWorker(model.model_copy(deep=True), out_dir, prepare=prepare)
         self.worker.prepared.connect(self._on_prepared)
@@ -280,7 +295,17 @@ class ResultsController(ResultFiles, QObject):
         self.remove_temp_folders()
 
     def _on_prepared(self, session, prepared) -> None:
-        self.store, display = prepared
+        self.store, display, auto = prepared
+        if auto is not None:  # the live view starts cut (the controls show the cut)
+            self._set_cut_controls("z", auto[1][0])
+            self._auto_note = (f"; view cut at z = {auto[1][1]:.1f} mm to show {auto[0]}; "
+                               "choose Whole model to see the outside")
+            if self.view.cut != ("z", auto[1][0]):
+                self.view.cut = ("z", auto[1][0])
+                if self.view._same_mesh(display.grid):  # the drawn surface is kept: cut it here
+                    self.view.set_cut("z", auto[1][0])
+        else:
+            self._auto_note = ""
         self._stepper = session.stepper  # read after the run: how it was solved
         self._results_model = self._pending_model
         self._live = None
@@ -322,7 +347,9 @@ class ResultsController(ResultFiles, QObject):
         if self._reveal_pending:  # the first frame of a run: switch the view to the field now
             self._reveal_pending = False
             self.set_results_shown(True, paint=False)
-        following = self.timeline.index >= s.n_frames - 2 or not self.timeline.isEnabled()
+        # following the newest output: judged against what the slider offered until now (frames
+        # arrive in bunches between paced redraws, so the store's count would say "not following")
+        following = not self.timeline.isEnabled() or self.timeline.index >= self.timeline.slider.maximum() - 1
         if self._new_outputs:
             self._new_outputs = False
             self.timeline.blockSignals(True)
@@ -332,9 +359,8 @@ class ResultsController(ResultFiles, QObject):
         if following and self._live is not None and self._live[0] > s.times[-1]:
             t, f = self._live
             lo, hi = s.colour_range(None, False)
-            self.view.show_field(f, (min(lo, float(f.min())), max(hi, float(f.max()))), paint=False)
-            self.view.set_caption(f"t = {format_time(t, s.duration_s)} (computing)")
-            self.chart.set_cursor(t)
+            self.view.show_field(f, live_colour_range(lo, hi, f), paint=False)
+            self._show_time(t, computing=True)
         elif following or not self.running:
             self._show(self.timeline.index, paint=False)
         else:
@@ -422,11 +448,22 @@ class ResultsController(ResultFiles, QObject):
             return
         i = max(0, min(i, s.n_frames - 1))
         clim = s.colour_range(i, self.rescale_box.isChecked())
+        if self.running and not self.rescale_box.isChecked():
+            clim = live_colour_range(clim[0], clim[1], s.frame(i))
         self.view.show_field(s.frame(i), clim, paint=paint)
         t = s.times[i]
-        self.view.set_caption(f"t = {format_time(t, s.duration_s)}" + ("   (model changed since)" if self.stale else ""))
+        self._show_time(t)
         over, at_risk = s.verdicts_at(i)
         self._mark(over, at_risk)
+        self.chart.set_cursor(t)
+
+    def _show_time(self, t: float, computing: bool = False) -> None:
+        """The time of the drawn field, the same text in the view's caption and beside the slider,
+        and the chart's cursor there."""
+        s = self.store
+        text = f"t = {format_time(t, s.duration_s)}" + (" (computing)" if computing else "")
+        self.view.set_caption(text + ("   (model changed since)" if self.stale and not computing else ""))
+        self.timeline.show_time_text(text if computing else None)
         self.chart.set_cursor(t)
 
     def _mark(self, over: set, at_risk: set = frozenset()) -> None:
@@ -469,8 +506,13 @@ class ResultsController(ResultFiles, QObject):
         if not names:
             names = s.rated_parts() or list(s.part_names)
         times, pmax = s.history()
+        verdicts, errors = {}, {}
+        if s.peak_rows:
+            k = PEAK_COLUMNS.index("status")
+            verdicts = {r[0]: r[k] for r in s.peak_rows}
+            errors = {n: s.error_k(n) for n in names}
         self.chart.show_parts(names, times, pmax, s.part_names, {n: s.rating(n) for n in names},
-                              span_s=s.duration_s)
+                              span_s=s.duration_s, verdicts=verdicts, errors=errors)
         if s.n_frames:
             self.chart.set_cursor(s.times[min(self.timeline.index, s.n_frames - 1)])
 
@@ -498,7 +540,7 @@ class ResultsController(ResultFiles, QObject):
         """Cut across z just above the hottest part when its hot spot is hidden inside the model and
         the user has not chosen a cut; returns the sentence for the status text ('' when no cut)."""
         s = self.store
-        if s is None or self._user_cut or self.cut_choice.currentIndex() != 0:
+        if s is None or self._user_cut:
             return ""
         hot = hottest_spot(s.peak_rows)
         if hot is None:
@@ -507,23 +549,31 @@ class ResultsController(ResultFiles, QObject):
         cut = revealing_cut_z(xyz, s.points_mm, s.part_bounds_mm.get(name),
                               min_fraction=self.cut_slider.minimum() / 100)
         if cut is None:
-            return ""
+            return getattr(self, "_auto_note", "") if self.cut_choice.currentIndex() != 0 else ""
         fraction, z_mm = cut
+        if self.view.cut == ("z", fraction):  # already cut there from the first frame
+            return (f"; view cut at z = {z_mm:.1f} mm to show the hottest part ({name}); "
+                    "choose Whole model to see the outside")
         self._auto_cutting = True
-        try:
-            for w in (self.cut_choice, self.cut_slider):
-                w.blockSignals(True)
-            self.cut_choice.setCurrentIndex([a for _, a in CUT_CHOICES].index("z"))
-            self.cut_slider.setValue(int(round(fraction * 100)))
-        finally:
-            for w in (self.cut_choice, self.cut_slider):
-                w.blockSignals(False)
+        self._set_cut_controls("z", fraction)
         try:
             self._on_cut()
         finally:
             self._auto_cutting = False
         return (f"; view cut at z = {z_mm:.1f} mm to show the hottest part ({name}); "
                 "choose Whole model to see the outside")
+
+    def _set_cut_controls(self, axis, fraction: float) -> None:
+        """Show a cut in the "Look inside" controls without acting on it."""
+        try:
+            for w in (self.cut_choice, self.cut_slider):
+                w.blockSignals(True)
+            self.cut_choice.setCurrentIndex([a for _, a in CUT_CHOICES].index(axis))
+            self.cut_slider.setValue(int(round(fraction * 100)))
+            self.cut_slider.setEnabled(axis is not None)
+        finally:
+            for w in (self.cut_choice, self.cut_slider):
+                w.blockSignals(False)
 
     def _on_cut(self, *_):
         if not self._auto_cutting:
@@ -584,3 +634,15 @@ def clean_stale_temp_runs(max_age_s: float = STALE_TEMP_S) -> list[Path]:
             shutil.rmtree(root, ignore_errors=True)
             gone.append(root)
     return gone
+
+
+LIVE_MIN_SPAN_K = 5.0  # while a run streams, the colour scale spans at least this much above its cool end
+
+
+def live_colour_range(lo: float, hi: float, field) -> tuple[float, float]:
+    """Colour range (°C) for a frame drawn while the run goes on: the cool end stays where the run
+    started (ambient / initial temperature), the hot end follows the largest temperature so far,
+    and the span is at least LIVE_MIN_SPAN_K, so the first nearly uniform frames do not paint noise."""
+    f = np.asarray(field)
+    lo, hi = min(lo, float(f.min())), max(hi, float(f.max()))
+    return lo, max(hi, lo + LIVE_MIN_SPAN_K)

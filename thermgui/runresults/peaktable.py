@@ -61,6 +61,7 @@ class PeakTable(QWidget):
         # carries a small arrow of its own instead, so the columns fit
         header.setSortIndicatorShown(False)
         header.sortIndicatorChanged.connect(lambda *_: self._set_headings())
+        self._set_headings()
         self.table.setAlternatingRowColors(False)
         self.table.setHorizontalScrollMode(QAbstractItemView.ScrollPerPixel)
         self.summary = QLabel("The peak table appears when a run finishes.")

@@ -50,7 +50,7 @@ class RunStatus(QWidget):
         self.bar.setTextVisible(True)
         # room for the longest progress text; the line beside it gives way (its tooltip keeps it all)
         self.bar.setMinimumWidth(self.bar.fontMetrics().horizontalAdvance(
-            "100 % · t = 59.9 min · about 59 min left") + 30)
+            "100 % · about 59 min 59 s left") + 30)
         self.detail = ElidingLabel("Press Run (F5) to solve the model.")
         self.message = QLabel()
         self.message.setWordWrap(True)
@@ -97,11 +97,11 @@ class RunStatus(QWidget):
         self.bar.setRange(0, 1000)
         self.bar.setValue(int(1000 * step / max(1, n_steps)))
         left = remaining_seconds(step, n_steps, elapsed_s)
-        text = f"%p % · t = {format_time(time_s)}"
+        text = "%p %"  # the model time shows once, with the drawn field (view caption and slider)
         if left is not None:
             text += f" · about {format_duration(left)} left"
         self.bar.setFormat(text)
-        self.bar.setToolTip(f"step {step:,} of {n_steps:,}")
+        self.bar.setToolTip(f"step {step:,} of {n_steps:,}, computing t = {format_time(time_s, self._span or None)}")
 
     def finished(self, text: str) -> None:
         self.bar.setRange(0, 1000)

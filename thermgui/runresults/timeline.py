@@ -16,6 +16,7 @@ class TimelineBar(QWidget):
     def __init__(self, parent=None, frame_interval_ms: int = 250):
         super().__init__(parent)
         self._times: list[float] = []
+        self._override: str | None = None  # a live frame's time shown instead of the slider's
         self._span = 0.0
         st = self.style()
         # single arrows for single steps (the "skip to start / end" icons promised a jump)
@@ -87,15 +88,23 @@ class TimelineBar(QWidget):
         self.set_index(self.slider.value() + delta)
 
     def _on_value(self, i: int) -> None:
+        self._override = None  # the user moved the slider: its time is the one shown
         self._update_label()
         self.indexChanged.emit(i)
+
+    def show_time_text(self, text: str | None) -> None:
+        """Show ``text`` (e.g. the time of a live frame beyond the last output) instead of the
+        slider's time; None goes back to the slider's time."""
+        self._override = text
+        self._update_label()
 
     def _update_label(self) -> None:
         if not self._times:
             self.label.setText("no results yet")
             return
         i = self.slider.value()
-        self.label.setText(f"t = {format_time(self._times[i], self._span)}  of {format_time(self._span, self._span)}")
+        shown = self._override or f"t = {format_time(self._times[i], self._span)}"
+        self.label.setText(f"{shown}  of {format_time(self._span, self._span)}")
 
     # ------------------------------------------------------------ playback
     def set_playing(self, on: bool) -> None:
