@@ -38,6 +38,15 @@ def state_dir() -> Path:
     return Path(loc) if loc else Path.home() / ".thermgui"
 
 
+def display_path(path) -> str:
+    """A path as people read it: the home folder as ``~`` (the full path goes in tooltips)."""
+    p = Path(path)
+    try:
+        return "~/" + str(p.resolve().relative_to(Path.home().resolve()))
+    except (ValueError, OSError, RuntimeError):
+        return str(p)
+
+
 def is_bundled_sample(path) -> bool:
     """True for a model file in the samples folder shipped with the program."""
     from .cli import SAMPLES_DIR

@@ -15,7 +15,7 @@ from PySide6.QtWidgets import (QDoubleSpinBox, QLabel, QMainWindow, QSplitter, Q
 
 from . import edits
 from .document import ModelDocument
-from .fileops import FileOps
+from .fileops import FileOps, display_path
 from .forms import PropertyPanel
 from .itemtree import ItemTree
 from .prompts import DialogPrompts
@@ -291,8 +291,9 @@ class MainWindow(QMainWindow):
         d = self.document
         self.setWindowTitle(f"{d.display_name}[*] — {APP_NAME}")
         self.setWindowModified(d.dirty)
-        where = str(d.path) if d.path else "not saved yet"
+        where = display_path(d.path) if d.path else "not saved yet"
         self.status_text.setText(where + ("  (unsaved changes)" if d.dirty else ""))
+        self.status_text.setToolTip(str(d.path) if d.path else "")
 
     def _model_changed(self):
         d = self.document.model_dict()

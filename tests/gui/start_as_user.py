@@ -1,11 +1,16 @@
 """Start the app exactly as the ``thermgui`` command does (no arguments), look at it, and close it.
 
 Run as a script by tests/gui/test_first_start.py in a fresh Xvfb screen of a chosen size, with a
-fresh state folder and HOME:  ``python start_as_user.py REPORT.json SHOT.png [--run]``
+fresh state folder and HOME:  ``python start_as_user.py REPORT.json SHOT.png [options]``
 
 Nothing in the app is replaced: message boxes are recorded (so none blocks), and a timer, started
-before ``thermgui.cli.main([])``, reads the window once it is up, saves a picture and closes it.
-With ``--run`` the timer also presses Run and waits for the run to finish before looking.
+before ``thermgui.cli.main(...)``, reads the window once it is up, saves a picture and closes it.
+Options (also used to make the docs' screenshots, see docs/workbench.md):
+  --open FILE     start as ``thermgui open FILE`` instead of ``thermgui``
+  --save-as REL   first save the model as HOME/REL (File ▸ Save As), so results go beside it
+  --select PART   select that part in the list before looking
+  --run           press Run and wait for the run to finish before looking
+  --at-peak PART  after the run, move the slider to the output nearest that part's peak
 """
 from __future__ import annotations
 
@@ -18,6 +23,13 @@ from PySide6.QtWidgets import QApplication, QMessageBox
 
 REPORT, SHOT = Path(sys.argv[1]), Path(sys.argv[2])
 DO_RUN = "--run" in sys.argv
+
+
+def _option(name):
+    return sys.argv[sys.argv.index(name) + 1] if name in sys.argv else None
+
+
+OPEN, SAVE_AS, SELECT, AT_PEAK = _option("--open"), _option("--save-as"), _option("--select"), _option("--at-peak")
 boxes = []
 
 
@@ -75,8 +87,17 @@ def watch():
         return
     win = wins[0]
     win.document.undo_stack.setClean()
+    if SAVE_AS:
+        target = Path.home() / SAVE_AS
+        target.parent.mkdir(parents=True, exist_ok=True)
+        assert win.fileops.save_to(target)
+    if SELECT:
+        win.item_tree.select_part(SELECT)
 
     def finish():
+        if AT_PEAK:
+            row = next(r for r in win.results.table.shown_rows() if r[0] == AT_PEAK)
+            win.results.timeline.set_index(win.results.store.index_at(float(row[3])))
         look(win)
         win.close()
 
@@ -96,4 +117,4 @@ app = QApplication(sys.argv[:1])  # the one make_application() then reuses
 QTimer.singleShot(0, watch)
 from thermgui.cli import main  # noqa: E402
 
-sys.exit(main([]))
+sys.exit(main(["open", OPEN] if OPEN else []))

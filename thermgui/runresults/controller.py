@@ -21,6 +21,7 @@ from PySide6.QtWidgets import (QCheckBox, QComboBox, QHBoxLayout, QLabel, QSizeP
 
 from solver.results import PEAK_COLUMNS
 
+from ..fileops import display_path
 from .autocut import box_visible, hottest_spot, likely_hot_spot, revealing_cut_z
 from .chart import PartChart
 from .fieldview import FieldView, build_display
@@ -387,7 +388,7 @@ class ResultsController(ResultFiles, QObject):
         st = getattr(self, "_stepper", None)
         if st is not None and st.method == "reduced" and st.reduced_info is not None:
             note += f". Solved by a {st.reduced_info.describe()}"
-        where = str(s.folder)
+        where = display_path(s.folder)
         if any(r in s.folder.parents for r in self._temp_roots):
             where += " (temporary: removed when the window closes; save the model to keep results beside it)"
         self.status.finished(f"Finished: {s.n_frames} outputs, kept in {where}{note}" + self._auto_cut())
@@ -589,6 +590,9 @@ class ResultsController(ResultFiles, QObject):
         return model is None or self._results_model is None or model.to_json_dict() != self._results_model
 
     def _on_model_changed(self) -> None:
+        model = getattr(self.window.document, "model", None)
+        if self.store is None and model is not None:  # the empty table's headings in the run's time unit
+            self.table.set_rows(None, float(model.run.duration_s))
         path = getattr(self.window.document, "path", None)
         if path != self._checked_path:  # a model was opened: reopen the results kept beside it
             self._checked_path = path
