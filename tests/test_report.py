@@ -72,8 +72,8 @@ def cli(*args, env=None):
 
 @pytest.fixture(scope="module")
 def finished(tmp_path_factory):
-    """A finished run (10 min, the chip over its rating) with an error band and an accuracy record
-    written in as the engine's accuracy estimate writes them (peak_error_k; run.json `accuracy`)."""
+    """A finished run (10 min, the chip over its rating) with the engine's accuracy record
+    (run.json `accuracy`); the error bands in peaks.csv are set by hand so that one part is at risk."""
     base = tmp_path_factory.mktemp("report")
     model = base / "chip.json"
     save_model(parse_model(chip_on_plate(duration_s=600.0, step_s=5.0, output_every_s=60.0)), model)
@@ -88,10 +88,6 @@ def finished(tmp_path_factory):
     by["plate"][head.index("status")] = "at-risk"
     with open(out / "peaks.csv", "w", newline="") as fh:
         csv.writer(fh).writerows(rows)
-    info = json.loads((out / "run.json").read_text())
-    info["accuracy"] = {"tolerance_k": 1.0, "levels": [{"cell_mm": 3.0, "nodes": 898, "chip_peak_c": 98.9},
-                                                       {"cell_mm": 1.5, "nodes": 5400, "chip_peak_c": 99.8}]}
-    (out / "run.json").write_text(json.dumps(info))
     return base, out, by, head
 
 
@@ -120,7 +116,10 @@ def test_report_is_one_file_with_everything(finished):
     assert body[0][1][3] == f"{float(by['chip'][head.index('peak_c')]):.1f} ± 1.3"
     assert "Peak at (min)" in peak_table[0][1]
     # the accuracy record, the model with material sources, the energy balance, the caution
-    assert "Mesh-independence record" in text and "5400" in text
+    record = json.loads((out / "run.json").read_text())["accuracy"]
+    assert record and record["levels"]
+    assert "Mesh-independence record" in text
+    assert f"{record['levels'][-1]['nodes']:,}" in text and record["stop_reason"] in text
     assert "Incropera" in text  # aluminium-6061's source in the built-in library
     assert "mould-compound" in text and "underside" in text
     energy = next(t for t in page.tables if t and t[0][1][0] == "Heat in")

@@ -262,8 +262,10 @@ def _accuracy_rows(acc) -> tuple[list[str], list[list[str]], list[tuple[str, str
 
     head, rows, pairs = [], [], []
     if isinstance(acc, dict):
+        table_key = "levels" if isinstance(acc.get("levels"), list) and acc["levels"] else None
         for k, v in acc.items():
-            if isinstance(v, list) and v and all(isinstance(x, dict) for x in v) and not head:
+            if isinstance(v, list) and v and all(isinstance(x, dict) for x in v) and not head and \
+                    (table_key is None or k == table_key):
                 head = list(dict.fromkeys(key for x in v for key in x))
                 rows = [[cell(x.get(h)) for h in head] for x in v]
             else:
@@ -320,7 +322,20 @@ def report_context(run: FinishedRun, pictures: bool = True) -> dict:
                       "ambient": (f"{amb:g}" if isinstance(amb, (int, float)) else
                                   "table" if amb is not None else f"{model.get('ambient_c', 25.0):g}"),
                       "extra": ", ".join(f"{k} {c[k]}" for k in ("emissivity", "surroundings_c") if k in c)})
-    acc_head, acc_rows, acc_pairs = _accuracy_rows(run.info.get("accuracy"))
+    acc = run.info.get("accuracy")
+    acc_head, acc_rows, acc_pairs = _accuracy_rows(acc)
+    acc_text = ""
+    if isinstance(acc, dict) and acc.get("levels"):
+        try:  # the solver's own table, as `thermgui solve` prints it
+            from solver.accuracy import format_record
+
+            acc_text = format_record(acc)
+        except Exception:  # an older or newer record shape: the generic table below still shows it
+            acc_text = ""
+        if acc_text:
+            acc_head, acc_rows = [], []
+            acc_pairs = [(k, v) for k, v in acc_pairs if k not in ("levels", "time_error_k")]
+    acc_pairs = [(k.replace("_", " "), v) for k, v in acc_pairs if v != ""]
     e_in, e_out, e_st = (float(energy.get(k, 0.0) or 0.0) for k in ("in_j", "out_j", "stored_j"))
     return {
         "name": run.folder.resolve().name, "title": model.get("title", ""), "folder": str(run.folder.resolve()),
@@ -340,7 +355,7 @@ def report_context(run: FinishedRun, pictures: bool = True) -> dict:
         "mesh": {"cell_mm": model.get("mesh", {}).get("cell_mm"), "nodes": mesh.get("nodes"),
                  "tets": mesh.get("tetrahedra"), "planes": mesh.get("planes")},
         "solver": solver_info, "accuracy": run.info.get("accuracy") is not None,
-        "acc_head": acc_head, "acc_rows": acc_rows, "acc_pairs": acc_pairs,
+        "acc_head": acc_head, "acc_rows": acc_rows, "acc_pairs": acc_pairs, "acc_text": acc_text,
         "energy": {"in": f"{e_in / 1000:.3g}", "out": f"{e_out / 1000:.3g}", "stored": f"{e_st / 1000:.3g}",
                    "residual": f"{float(energy.get('relative_residual', 0.0) or 0.0):.1e}",
                    "closure": f"{abs(e_in - e_out - e_st) / max(abs(e_in), 1e-30):.1e}"},
