@@ -9,10 +9,10 @@ from __future__ import annotations
 
 import shutil
 import tempfile
-
-import numpy as np
 import time
 from pathlib import Path
+
+import numpy as np
 
 from PySide6.QtCore import QEvent, QObject, Qt, QTimer
 from PySide6.QtGui import QAction, QKeySequence
