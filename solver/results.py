@@ -41,7 +41,7 @@ class PeakRow:
         def num(v, fmt="{:.3f}"):
             return "" if v is None or (isinstance(v, float) and np.isnan(v)) else fmt.format(v)
         return [self.part, num(self.rated_c, "{:.12g}"), num(self.peak_c), num(self.peak_error_k, "{:.3f}"),
-                num(self.peak_time_s, "{:.12g}"), num(self.margin_k), num(self.first_over_s, "{:.12g}"),
+                num(self.peak_time_s, "{:.12g}"), num(self.margin_k), num(self.first_over_s, "{:.2f}"),
                 *(num(c) for c in self.hotspot_mm), self.status]
 
 

@@ -25,7 +25,7 @@ def open_window(path=None, **window_kwargs):
 
     pv.global_theme.multi_samples = 0
     window = MainWindow(**window_kwargs)
-    window.show()
+    window.show_first_time()
     if path is not None:
         window.fileops.open_path(Path(path), ask_first=False)
     if window.document.path is None and not window.document.dirty:

@@ -3,6 +3,7 @@
     thermgui                      open the app on the bundled default sample
     thermgui open FILE            open a model (or a results folder) in the app
     thermgui solve MODEL --out D  run headless and write results to D
+    thermgui report DIR -o F.html one self-contained HTML design-review report of a finished run
 """
 from __future__ import annotations
 
@@ -31,11 +32,34 @@ def build_parser() -> argparse.ArgumentParser:
     p_open.add_argument("path", help="model file (.json) or results folder")
     p_solve = sub.add_parser("solve", help="solve a model headless and write peaks.csv, history.csv and the field")
     add_solve_arguments(p_solve)
+    p_rep = sub.add_parser("report", help="write a self-contained HTML design-review report of a finished run")
+    p_rep.add_argument("results", help="results folder written by `thermgui solve` or the app")
+    p_rep.add_argument("-o", "--output", help="HTML file to write (default: <folder>-report.html beside the folder)")
+    p_rep.add_argument("--no-pictures", action="store_true", help="leave out the 3D pictures (no OpenGL needed)")
     return parser
+
+
+def report_command(args) -> int:
+    """``thermgui report``: 0 written, 2 for a folder that is not a complete results folder (nothing
+    written), 1 when the file cannot be written."""
+    from .report import ReportError, write_report  # Qt-free
+
+    try:
+        out = write_report(args.results, args.output, pictures=not args.no_pictures)
+    except ReportError as e:
+        sys.stderr.write(f"{e}\n")
+        return 2
+    except OSError as e:
+        sys.stderr.write(f"{args.output or args.results}: cannot write the report ({e.strerror or e})\n")
+        return 1
+    print(f"report written to {out}")
+    return 0
 
 
 def main(argv=None) -> int:
     args = build_parser().parse_args(argv)
+    if args.command == "report":
+        return report_command(args)
     if args.command == "solve":
         try:
             return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver, method=args.method,

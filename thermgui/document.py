@@ -77,6 +77,14 @@ class ModelDocument(QObject):
         return f"{self.template_name} (sample copy)" if self.template_name else "untitled"
 
     # ------------------------------------------------------------ editing
+    @staticmethod
+    def path_text(path: tuple) -> str:
+        """A model-dict path as the model check names it: ("parts", 3, "size_mm", 2) -> parts[3].size_mm[2]."""
+        out = ""
+        for k in path:
+            out += f"[{k}]" if isinstance(k, int) else (f".{k}" if out else str(k))
+        return out
+
     def edit(self, new_dict: dict, text: str, select=None, select_before=None) -> Model:
         """Validate ``new_dict`` and push it as one undoable step; raise ModelError if invalid."""
         model = parse_model(new_dict)
@@ -85,13 +93,17 @@ class ModelDocument(QObject):
         self.undo_stack.push(ModelEdit(self, self.model, model, text, select, select_before))
         return model
 
-    def try_edit(self, new_dict: dict, text: str, report, select=None, select_before=None) -> bool:
-        """Like :meth:`edit`, but an invalid edit is reported through ``report(message)`` and refused."""
+    def try_edit(self, new_dict: dict, text: str, report, select=None, select_before=None,
+                 labels: dict | None = None) -> bool:
+        """Like :meth:`edit`, but an invalid edit is reported through ``report(message)`` and refused.
+        ``labels`` maps field paths (``parts[3].size_mm[2]``) to what the form calls them
+        (``Size z``), so the message names the field the user typed into."""
         try:
             self.edit(new_dict, text, select, select_before)
             return True
         except ModelError as e:
-            report(f"{text} refused, the model is unchanged.\n\n" + e.describe())
+            lines = [f"{(labels or {}).get(p, p)}: {m}" if p else m for p, m in e.issues]
+            report(f"{text} refused, the model is unchanged.\n\n" + "\n".join(lines))
             self.changed.emit()  # let forms show the unchanged values again
             return False
 

@@ -38,6 +38,15 @@ def state_dir() -> Path:
     return Path(loc) if loc else Path.home() / ".thermgui"
 
 
+def display_path(path) -> str:
+    """A path as people read it: the home folder as ``~`` (the full path goes in tooltips)."""
+    p = Path(path)
+    try:
+        return "~/" + str(p.resolve().relative_to(Path.home().resolve()))
+    except (ValueError, OSError, RuntimeError):
+        return str(p)
+
+
 def is_bundled_sample(path) -> bool:
     """True for a model file in the samples folder shipped with the program."""
     from .cli import SAMPLES_DIR
@@ -162,8 +171,10 @@ class FileOps(QObject):
         if ask_first and not self.maybe_discard("opening another model"):
             return False
         template = None
+        run_folder = False
         try:
             if is_run_folder(path):
+                run_folder = True
                 run = load_run(path)
                 model = parse_model(run.model_dict, str(path / "run.json"))
                 model_path = None
@@ -184,7 +195,7 @@ class FileOps(QObject):
             self._remember(model_path)
         if offer_recovery:
             self.offer_recovery()
-        if model_path is None and hasattr(self.window, "open_results"):
+        if run_folder and hasattr(self.window, "open_results"):  # a model file (a sample too) is no results folder
             self.window.open_results(path)
         return True
 

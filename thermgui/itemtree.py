@@ -17,7 +17,8 @@ ROLE = Qt.UserRole
 GROUPS = [("parts", "Parts"), ("heat_loads", "Heat loads"), ("convection", "Convection faces"),
           ("probes", "Probes"), ("materials", "Own materials")]
 STUDY_LABEL = "Study settings"
-MARK_COLOUR = QColor("#b0102f")
+MARK_COLOUR = QColor("#b0102f")  # over rating
+RISK_COLOUR = QColor("#8a5300")  # at risk (amber)
 
 
 class ItemTree(QTreeWidget):
@@ -35,6 +36,7 @@ class ItemTree(QTreeWidget):
         self.setUniformRowHeights(True)
         self._groups: dict[str, QTreeWidgetItem] = {}
         self._marked: set[str] = set()
+        self._at_risk: set[str] = set()
         self._hidden: set[str] = set()
         self._rebuilding = False
         self._study = QTreeWidgetItem([STUDY_LABEL])
@@ -133,27 +135,38 @@ class ItemTree(QTreeWidget):
         return None
 
     # ------------------------------------------------------------ marks
-    def mark_parts(self, over) -> None:
-        """Flag these parts (e.g. over their rating): warning icon, crimson bold text."""
+    def mark_parts(self, over, at_risk=()) -> None:
+        """Flag parts over their rating (warning icon, crimson bold text) and at risk (amber text,
+        information icon)."""
         self._marked = set(over)
+        self._at_risk = set(at_risk) - self._marked
         self._apply_marks()
 
     @property
     def marked_parts(self) -> set[str]:
         return set(self._marked)
 
+    @property
+    def at_risk_parts(self) -> set[str]:
+        return set(self._at_risk)
+
     def _apply_marks(self) -> None:
         g = self._groups["parts"]
         warn = self.style().standardIcon(QStyle.SP_MessageBoxWarning)
+        risk_icon = self.style().standardIcon(QStyle.SP_MessageBoxInformation)
         plain = QBrush()
+        risky = self.at_risk_parts
         for i in range(g.childCount()):
             row = g.child(i)
             on = row.text(0) in self._marked
+            risk = not on and row.text(0) in risky
             f = QFont(row.font(0))
-            f.setBold(on)
+            f.setBold(on or risk)
             row.setFont(0, f)
-            row.setForeground(0, QBrush(MARK_COLOUR) if on else plain)
-            row.setIcon(0, warn if on else QIcon())
+            row.setForeground(0, QBrush(MARK_COLOUR) if on else QBrush(RISK_COLOUR) if risk else plain)
+            row.setIcon(0, warn if on else risk_icon if risk else QIcon())
+            row.setToolTip(0, "over its rating at the shown time" if on else
+                           "at risk: its rating lies within the error band of its temperature" if risk else "")
 
     # ------------------------------------------------------------ visibility
     def hidden_parts(self) -> set[str]:

@@ -9,13 +9,13 @@ from __future__ import annotations
 from pathlib import Path
 
 from PySide6.QtCore import QSize, Qt
-from PySide6.QtGui import QAction, QKeySequence
+from PySide6.QtGui import QAction, QGuiApplication, QKeySequence
 from PySide6.QtWidgets import (QDoubleSpinBox, QLabel, QMainWindow, QSplitter, QStyle, QToolBar, QWidget,
                                QDockWidget)
 
 from . import edits
 from .document import ModelDocument
-from .fileops import FileOps
+from .fileops import FileOps, display_path
 from .forms import PropertyPanel
 from .itemtree import ItemTree
 from .prompts import DialogPrompts
@@ -29,12 +29,28 @@ KIND_WORDS = {"parts": "part", "heat_loads": "heat load", "convection": "convect
               "materials": "material"}
 
 
+class _FixedTextAction(QAction):
+    """A toolbar action with a fixed word ("Undo"); the command it would undo goes in the tooltip."""
+
+    def __init__(self, icon, word, parent):
+        super().__init__(icon, word, parent)
+        self.word = word
+        self.setToolTip(word)
+
+    def show_command(self, text: str) -> None:
+        self.setToolTip(f"{self.word} {text}" if text else self.word)
+
+
 class MainWindow(QMainWindow):
     def __init__(self, model=None, path: Path | None = None, prompts=None, auto_update: bool | float = False,
-                 settings=None, recovery_dir: Path | None = None, autosave_s: float | None = None):
+                 settings=None, recovery_dir: Path | None = None, autosave_s: float | None = None,
+                 size: tuple[int, int] | None = None):
         super().__init__()
         self.setWindowTitle(APP_NAME)
-        self.resize(1360, 840)
+        self._fixed_size = size  # tests ask for a fixed size; None: the screen's available area
+        self.first_start = True  # no window layout remembered yet (set by _restore_layout)
+        avail = self._available_area()
+        self.resize(*(size or (min(1360, avail.width()), min(840, avail.height()))))
         self.setAcceptDrops(True)  # drop a model file to open it
         self.prompts = prompts if prompts is not None else DialogPrompts(self)
         self.document = ModelDocument(model, path, self)
@@ -149,6 +165,20 @@ class MainWindow(QMainWindow):
         redo.setShortcuts([QKeySequence("Ctrl+Shift+Z"), QKeySequence("Ctrl+Y")])
         redo.setIcon(self.style().standardIcon(S.SP_ArrowForward))
         self.actions_["undo"], self.actions_["redo"] = undo, redo
+        # the toolbar's buttons keep a short fixed text (the menu items name the action, and so does
+        # the buttons' tooltip): a text that grows with the action's name pushed the toolbar aside
+        stack = self.document.undo_stack
+        for key, word, icon, go, can, can_changed, text_changed in (
+                ("undo_button", "Undo", S.SP_ArrowBack, stack.undo, stack.canUndo, stack.canUndoChanged,
+                 stack.undoTextChanged),
+                ("redo_button", "Redo", S.SP_ArrowForward, stack.redo, stack.canRedo, stack.canRedoChanged,
+                 stack.redoTextChanged)):
+            short = _FixedTextAction(self.style().standardIcon(icon), word, self)
+            short.triggered.connect(go)
+            short.setEnabled(can())
+            can_changed.connect(short.setEnabled)
+            text_changed.connect(short.show_command)
+            self.actions_[key] = short
         self._act("add_part", "Add &Part", lambda: self.add_item("parts"), "Ctrl+Shift+B", None,
                   "Add a box-shaped part on top of the model")
         self._act("add_load", "Add &Heat Load", lambda: self.add_item("heat_loads"), "Ctrl+Shift+H", None,
@@ -220,7 +250,7 @@ class MainWindow(QMainWindow):
         for k in ("open", "save"):
             tb.addAction(a[k])
         tb.addSeparator()
-        tb.addActions([a["undo"], a["redo"]])
+        tb.addActions([a["undo_button"], a["redo_button"]])
         tb.addSeparator()
         tb.addAction(a["add_part"])
         tb.addAction(a["delete"])
@@ -261,8 +291,9 @@ class MainWindow(QMainWindow):
         d = self.document
         self.setWindowTitle(f"{d.display_name}[*] — {APP_NAME}")
         self.setWindowModified(d.dirty)
-        where = str(d.path) if d.path else "not saved yet"
+        where = display_path(d.path) if d.path else "not saved yet"
         self.status_text.setText(where + ("  (unsaved changes)" if d.dirty else ""))
+        self.status_text.setToolTip(str(d.path) if d.path else "")
 
     def _model_changed(self):
         d = self.document.model_dict()
@@ -463,13 +494,40 @@ class MainWindow(QMainWindow):
                                             f"electronics enclosures: peak temperatures, when, and margin to "
                                             f"rating.\n\n{CAUTION}")
 
+    def _available_area(self):
+        screen = self.screen() or QGuiApplication.primaryScreen()
+        return screen.availableGeometry()
+
     def _restore_layout(self) -> None:
         s = self.fileops.settings
         geometry, state = s.value("window/geometry"), s.value("window/state")
+        self.first_start = geometry is None
         if geometry is not None:
             self.restoreGeometry(geometry)
+        elif self._fixed_size is None:
+            self.setGeometry(self._available_area())
         if state is not None:
             self.restoreState(state)
+
+    def show_first_time(self) -> None:
+        """Show the window: maximised over the screen's available area on the first start (then
+        the docks get sizes that leave the 3D view most of the window), as it was left afterwards."""
+        if self.first_start and self._fixed_size is None:
+            self.setGeometry(self._available_area())
+            self.showMaximized()
+        else:
+            self.show()
+        if self.first_start:
+            self.fit_docks()
+
+    def fit_docks(self) -> None:
+        """Dock sizes for the window's present size: the model panel about a quarter of the width
+        (300-420 px), the results under the 3D view about a third of the height."""
+        w, h = self.width(), self.height()
+        self.resizeDocks([self.model_dock], [int(min(420, max(300, 0.24 * w)))], Qt.Horizontal)
+        hook = getattr(self, "fit_result_docks", None)
+        if callable(hook):
+            hook(w, h)
 
     def _save_layout(self) -> None:
         s = self.fileops.settings

@@ -50,3 +50,10 @@ class DialogPrompts:
         if path and not path.lower().endswith(".png"):
             path += ".png"
         return path
+
+    def file_path(self, title: str, start: str = "", filter_text: str = "All files (*)", suffix: str = "") -> str:
+        """A file to write (``start``: suggested full path); ``suffix`` is added when missing."""
+        path, _ = QFileDialog.getSaveFileName(self.parent, title, start, filter_text)
+        if path and suffix and not path.lower().endswith(suffix):
+            path += suffix
+        return path

@@ -36,7 +36,8 @@ OTHER_COLOUR = "#b08fc7"
 PROBE_COLOUR = "#1f4fd1"
 FACE_COLOUR = "#2aa5c9"
 SELECT_COLOUR = "#ffb000"
-MARK_COLOUR = "#d0103a"
+MARK_COLOUR = "#d0103a"  # frame of a part over its rating
+RISK_COLOUR = "#e89600"  # frame of a part at risk (rating within its error band)
 BACKGROUND_BOTTOM = "#e9edf2"
 BACKGROUND_TOP = "#ffffff"
 CLICK_SLOP_PX = 4
@@ -107,6 +108,7 @@ class Viewport(QWidget):
         self._select_actor = None
         self._mark_actors: list = []
         self._marked: set[str] = set()
+        self._at_risk: set[str] = set()
         self._selected: str | None = None
         self._caption = None
         self._press = None
@@ -158,6 +160,7 @@ class Viewport(QWidget):
             self._selected = None
         self.hidden_parts &= names
         self._marked &= names
+        self._at_risk &= names
         self._apply_visibility()
         self._update_selection_graphics()
         self._update_marks()
@@ -224,12 +227,14 @@ class Viewport(QWidget):
         for a in self._mark_actors:
             self.plotter.remove_actor(a, render=False)
         self._mark_actors = []
-        for i, name in enumerate(sorted(self._marked)):
+        marks = [(n, MARK_COLOUR, 6) for n in sorted(self._marked)]
+        marks += [(n, RISK_COLOUR, 4) for n in sorted(self._at_risk)]
+        for i, (name, colour, width) in enumerate(marks):
             p = self._part(name)
             if p is None:
                 continue
             outline = pv.Box(bounds=self._bounds(p)).extract_feature_edges()
-            self._mark_actors.append(self.plotter.add_mesh(outline, color=MARK_COLOUR, line_width=6,
+            self._mark_actors.append(self.plotter.add_mesh(outline, color=colour, line_width=width,
                                                            name=f"mark::{i}", render=False, pickable=False))
 
     def showEvent(self, event):
@@ -322,9 +327,11 @@ class Viewport(QWidget):
         self._update_face()
         self.refresh()
 
-    def highlight_parts(self, names) -> None:
-        """Frame the given parts in crimson (used for parts over their rating)."""
+    def highlight_parts(self, names, at_risk=()) -> None:
+        """Frame ``names`` in crimson (parts over their rating) and ``at_risk`` in amber (dashed
+        look: thinner line)."""
         self._marked = {n for n in names if self._part(n)}
+        self._at_risk = {n for n in at_risk if self._part(n)} - self._marked
         self._update_marks()
         self.refresh()
 

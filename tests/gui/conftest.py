@@ -65,6 +65,7 @@ def open_main_window(qtbot, gui_state):
 
     def make(path=None, prompts=None, **kw):
         kw.setdefault("autosave_s", 0)
+        kw.setdefault("size", (1360, 840))  # a fixed size for the tests of other things (first start: test_first_start)
         w = open_window(path, prompts=prompts or ScriptedPrompts(), auto_update=False, **kw)
         qtbot.addWidget(w)
         qtbot.waitExposed(w)

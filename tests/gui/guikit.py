@@ -32,5 +32,8 @@ class ScriptedPrompts:
 
     open_path = save_path = image_path = _path
 
+    def file_path(self, title, start="", filter_text="", suffix=""):
+        return self._path(title, start)
+
     def errors(self) -> list[str]:
         return [t for k, _, t in self.messages if k == "error"]

@@ -104,7 +104,8 @@ def test_negative_size_is_refused_with_a_message(main_window):
     type_into(size_z, "-2")
     errors = w.prompts.errors()
     assert len(errors) == 1
-    assert f"parts[{i}].size_mm[2]" in errors[0] and "greater than 0" in errors[0]
+    # named as the form names it (issue 13), not by its path in the file
+    assert "Size z: input should be greater than 0" in errors[0] and f"parts[{i}]" not in errors[0]
     assert "radio module" in errors[0] and "unchanged" in errors[0]
     assert w.document.model_dict() == before
     assert size_z.text() == "2.4"
@@ -127,7 +128,10 @@ def test_add_heat_load_and_edit_its_profile(main_window):
     type_into(form.profile.fields["constant"]["value"].edit, "2.5")
     assert w.document.model.heat_loads[n].profile.value == 2.5
     xs, ys = form.profile.curve.getData()
-    assert max(ys) == 2.5 and xs[-1] == w.document.model.run.duration_s
+    # the preview's time axis is in the run's unit (minutes for the sample's 30 min), never "ks"
+    assert max(ys) == 2.5 and xs[-1] * 60 == pytest.approx(w.document.model.run.duration_s)
+    axis = form.profile.plot.getAxis("bottom")
+    assert axis.labelText == "time (min)" and not axis.autoSIPrefix
     # switch to a repeating pulse: the preview shows both levels
     form.profile.kind.setCurrentIndex(2)
     prof = w.document.model.heat_loads[n].profile
@@ -252,8 +256,25 @@ def test_study_settings_form(main_window, artifacts):
     type_into(f.numbers[("run", "duration_s")].edit, "900")
     assert w.document.model.run.duration_s == 900
     type_into(f.numbers[("run", "step_s")].edit, "1000")
-    assert "run.step_s" in w.prompts.errors()[-1]
+    assert "Time step: step (1000 s) is longer" in w.prompts.errors()[-1]  # the form's label, not run.step_s
     assert w.document.model.run.step_s == step
+    # durations typed in minutes or hours; shown in the largest unit that shows them exactly
+    dur = f.numbers[("run", "duration_s")]
+    type_into(dur.edit, "45 min")
+    assert w.document.model.run.duration_s == 2700 and dur.edit.text() == "45 min"
+    type_into(dur.edit, "1.5 h")
+    assert w.document.model.run.duration_s == 5400 and dur.edit.text() == "1.5 h"
+    n_errors = len(w.prompts.errors())
+    type_into(dur.edit, "2 weeks")  # a unit the form cannot parse: named, and the value reverts
+    assert len(w.prompts.errors()) == n_errors + 1
+    msg = w.prompts.errors()[-1]
+    assert msg.startswith("Duration of the study: '2 weeks' is not understood") and "s, min, h" in msg
+    assert w.document.model.run.duration_s == 5400 and dur.edit.text() == "1.5 h"
+    # the fields line up: every number box ends at the same x, and nothing is cut off at the right
+    rights = {e.mapTo(f, e.rect().topRight()).x() for e in (n.edit for n in f.numbers.values())}
+    assert len(rights) == 1, rights
+    scroll = w.properties._pages["study"]
+    assert not scroll.horizontalScrollBar().isVisible()
     # the solution method and its tolerance, undoable like every edit
     f.method.setCurrentIndex(f.method.findData("reduced"))
     f.method.activated.emit(f.method.currentIndex())
@@ -345,7 +366,7 @@ def test_own_material_from_datasheet(main_window):
     type_into(form.kxyz.fields[2].edit, "0.55")  # through-thickness value from a datasheet
     assert w.document.model.materials[name].conductivity == [30.0, 30.0, 0.55]
     type_into(form.rho.edit, "-3")
-    assert "materials." in w.prompts.errors()[-1] and "density" in w.prompts.errors()[-1]
+    assert "Density: input should be greater than 0" in w.prompts.errors()[-1]
     assert w.document.model.materials[name].density == 2200.0
     # the part picks it up from its material list, then a rename follows into the part
     w.item_tree.select("parts", board)

@@ -38,6 +38,7 @@ class PropertyPanel(QWidget):
                       "probes": ProbeForm(self), "study": StudyForm(self), "materials": MaterialForm(self)}
         self._pages = {}
         for kind, f in self.forms.items():
+            f.align_units()
             scroll = QScrollArea()  # one per form, so each scrolls only when it is itself too tall
             scroll.setWidgetResizable(True)
             scroll.setWidget(f)

@@ -6,6 +6,7 @@ A field only parses text; whether the value is allowed is decided by the model c
 from __future__ import annotations
 
 import math
+import re
 
 from PySide6.QtCore import Signal
 from PySide6.QtWidgets import QHBoxLayout, QLabel, QLineEdit, QWidget
@@ -28,6 +29,43 @@ def parse_number(text: str):
     return v
 
 
+# time units a field may be typed in: name -> (seconds, other spellings)
+TIME_UNITS = {"s": (1.0, ("sec", "secs", "second", "seconds")), "min": (60.0, ("mins", "minute", "minutes")),
+              "h": (3600.0, ("hr", "hrs", "hour", "hours"))}
+_WITH_UNIT = re.compile(r"^\s*([-+]?[0-9.,]+(?:[eE][-+]?[0-9]+)?)\s*([^\d\s].*?)?\s*$")
+
+
+def parse_with_unit(text: str, units: dict):
+    """``(value in the first unit of units, unit typed)`` from "30 min", "1.5 h", "90" (the
+    first unit); None for empty; ValueError naming the problem otherwise."""
+    t = text.strip()
+    if not t:
+        return None
+    m = _WITH_UNIT.match(t)
+    if not m:
+        raise ValueError("not a number")
+    v = parse_number(m.group(1))
+    word = (m.group(2) or "").strip().lower()
+    if not word:
+        return v
+    for name, (size, spellings) in units.items():
+        if word == name or word in spellings:
+            return v * size
+    raise ValueError(f"unit {word!r} not known")
+
+
+def format_with_unit(v, units: dict) -> str:
+    """``v`` (in the first unit) in the largest unit that shows it exactly: 1800 -> '30 min'."""
+    if v is None:
+        return ""
+    v = float(v)
+    for name, (size, _) in sorted(units.items(), key=lambda kv: -kv[1][0]):
+        q = v / size
+        if abs(v) >= size and abs(q * 1000 - round(q * 1000)) < 1e-6:
+            return f"{format_number(q)} {name}"
+    return f"{format_number(v)} {next(iter(units))}"
+
+
 class NumberField(QWidget):
     """A line edit with a unit label. ``committed(value)`` (float, or None when emptied and
     ``optional``) fires when the text changed and was confirmed; ``rejected(text)`` when the
@@ -36,9 +74,11 @@ class NumberField(QWidget):
     committed = Signal(object)
     rejected = Signal(str)
 
-    def __init__(self, unit: str = "", optional: bool = False, placeholder: str = "", parent=None):
+    def __init__(self, unit: str = "", optional: bool = False, placeholder: str = "", parent=None,
+                 units: dict | None = None):
         super().__init__(parent)
         self.optional = optional
+        self.units = units  # e.g. TIME_UNITS: the text carries its unit ("30 min"); values in the first one
         self.edit = QLineEdit()
         self.edit.setPlaceholderText(placeholder)
         self.edit.setMinimumWidth(60)
@@ -50,12 +90,21 @@ class NumberField(QWidget):
         self.unit.setMinimumWidth(0)
         if unit:
             lay.addWidget(self.unit)
+        if units:
+            self.unit.setText("")
+            self.edit.setToolTip("Type a number with a unit: " + ", ".join(units) + " (for example 30 min)")
         self._shown = ""
         self.edit.editingFinished.connect(self._finish)
         self.edit.returnPressed.connect(self._finish)
 
+    def unit_names(self) -> list[str]:
+        return list(self.units or ([self.unit.text()] if self.unit.text() else []))
+
+    def _format(self, v) -> str:
+        return format_with_unit(v, self.units) if self.units else format_number(v)
+
     def set_value(self, v) -> None:
-        self._shown = format_number(v)
+        self._shown = self._format(v)
         self.edit.setText(self._shown)
 
     def text(self) -> str:
@@ -71,7 +120,7 @@ class NumberField(QWidget):
         if text.strip() == self._shown.strip():
             return
         try:
-            v = parse_number(text)
+            v = parse_with_unit(text, self.units) if self.units else parse_number(text)
         except ValueError:
             self.edit.setText(self._shown)
             self.rejected.emit(text)
@@ -80,7 +129,8 @@ class NumberField(QWidget):
             self.edit.setText(self._shown)
             self.rejected.emit(text)
             return
-        self._shown = format_number(v)
+        self._shown = self._format(v)
+        self.edit.setText(self._shown)
         self.committed.emit(v)
 
 
@@ -106,7 +156,8 @@ class Vec3Field(QWidget):
             lay.addWidget(lab)
             lay.addWidget(f, 1)
             self.fields.append(f)
-        lay.addWidget(QLabel(unit))
+        self.unit = QLabel(unit)
+        lay.addWidget(self.unit)
 
     def set_values(self, values) -> None:
         for f, v in zip(self.fields, values):

@@ -12,7 +12,7 @@ from PySide6.QtWidgets import QComboBox, QFormLayout, QLabel, QLineEdit, QPushBu
 from solver.model import MASS_KINDS, SCHEMES, SIDES
 
 from .. import edits
-from .fields import NumberField, Vec3Field
+from .fields import TIME_UNITS, NumberField, Vec3Field
 from .material_picker import MaterialPicker
 from .profile_editor import ProfileEditor
 
@@ -53,14 +53,40 @@ class ItemForm(QWidget):
                 "probes": "probe", "materials": "material"}.get(self.kind, self.kind)
 
     def commit(self, path: tuple, value, label: str) -> bool:
-        """Set one value (``path`` inside the model dict) as one undoable edit."""
+        """Set one value (``path`` inside the model dict) as one undoable edit; a refusal names
+        the field by ``label`` (as the form shows it), not by its path in the file."""
         new = edits.set_value(self.doc.model_dict(), path, value)
         sel = (self.kind, self.index)
-        return self.doc.try_edit(new, f"Set {label} of {self.what()}", self.panel.report, sel, sel)
+        return self.doc.try_edit(new, f"Set {label} of {self.what()}", self.panel.report, sel, sel,
+                                 labels={self.doc.path_text(path): label[:1].upper() + label[1:]})
 
-    def reject_text(self, label: str, text: str) -> None:
-        self.panel.report(f"{label} of {self.what()}: {text!r} is not a number; the model is unchanged.")
+    def reject_text(self, label: str, text: str, units=None) -> None:
+        label = label[:1].upper() + label[1:]
+        if units:
+            self.panel.report(f"{label} of {self.what()}: {text!r} is not understood; type a number, optionally "
+                              f"with one of the units {', '.join(units)} (for example 30 {units[1] if len(units) > 1 else units[0]}). "
+                              "The model is unchanged.")
+        else:
+            self.panel.report(f"{label} of {self.what()}: {text!r} is not a number; the model is unchanged.")
         self.load()
+
+    def align_units(self) -> None:
+        """One width for the unit labels of this form's number fields and a common right edge for
+        every field, so the boxes line up; long choices give way instead of widening the form."""
+        from PySide6.QtWidgets import QComboBox
+
+        labels = [f.unit for f in self.findChildren(NumberField) if f.layout().indexOf(f.unit) >= 0]
+        labels += [f.unit for f in self.findChildren(Vec3Field)]
+        if labels:
+            width = max(lab.sizeHint().width() for lab in labels)
+            for lab in labels:
+                lab.setFixedWidth(width)
+        for c in self.findChildren(QComboBox):
+            c.setSizeAdjustPolicy(QComboBox.AdjustToMinimumContentsLengthWithIcon)
+            c.setMinimumContentsLength(10)
+        for e in self.findChildren(QLineEdit):
+            e.setMinimumWidth(50)
+        self.layout_.setFieldGrowthPolicy(QFormLayout.AllNonFixedFieldsGrow)
 
     def name_edit(self, on_commit) -> QLineEdit:
         e = QLineEdit()
@@ -277,9 +303,10 @@ class StudyForm(ItemForm):
                 (("run", "output_every_s"), "Save every", "s", True),
                 (("run", "tolerance_k"), "Tolerance", "K", True)]:
             hint = {"output_every_s": "about 100 outputs", "tolerance_k": "fixed steps"}.get(path[-1], "")
-            f = NumberField(unit, optional=optional, placeholder=hint)
+            timed = unit == "s"  # times may be typed as 30 min or 2 h
+            f = NumberField(unit, optional=optional, placeholder=hint, units=TIME_UNITS if timed else None)
             f.committed.connect(lambda v, p=path, lab=label: self.commit(p, self._typed(p, v), lab.lower()))
-            f.rejected.connect(lambda t, lab=label: self.reject_text(lab.lower(), t))
+            f.rejected.connect(lambda t, lab=label, f=f: self.reject_text(lab.lower(), t, f.unit_names()))
             L.addRow(label, f)
             self.numbers[path] = f
         self.scheme = QComboBox()
@@ -334,7 +361,8 @@ class StudyForm(ItemForm):
         d.setdefault("mesh", {})
         d.setdefault("run", {})
         new = edits.set_value(d, path, value)
-        return self.doc.try_edit(new, f"Set {label} of the study", self.panel.report, ("study", 0), ("study", 0))
+        return self.doc.try_edit(new, f"Set {label} of the study", self.panel.report, ("study", 0), ("study", 0),
+                                 labels={self.doc.path_text(path): label[:1].upper() + label[1:]})
 
 
 class MaterialForm(ItemForm):

@@ -15,6 +15,7 @@ from PySide6.QtWidgets import (QAbstractItemView, QComboBox, QFormLayout, QHBoxL
 
 from solver.profiles import make_profile
 
+from ..runresults.timefmt import format_time, time_unit
 from .fields import NumberField, format_number, parse_number
 
 KIND_LABELS = [("constant", "Constant"), ("step", "Switch on at a time"), ("pulse", "Repeating pulse"),
@@ -84,8 +85,11 @@ class ProfileEditor(QWidget):
         self.plot.hideButtons()
         self.plot.setMenuEnabled(False)
         self.plot.showGrid(x=True, y=True, alpha=0.25)
-        self.plot.setLabel("bottom", "time", units="s")
+        self.plot.getAxis("bottom").enableAutoSIPrefix(False)  # no "ks": minutes or hours instead
+        self.plot.getAxis("left").enableAutoSIPrefix(False)
+        self.plot.setLabel("bottom", "time (s)")
         self.plot.setLabel("left", unit)
+        self._time_size = 1.0
         self.curve = self.plot.plot([], [], pen=pg.mkPen("#c4551a", width=2))
         lay.addWidget(self.plot)
         self.preview_note = QLabel("")
@@ -136,12 +140,15 @@ class ProfileEditor(QWidget):
             self._loading = False
         if spec is not None:
             t, v = preview_curve(spec, t_end)
-            self.curve.setData(t, v)
-            self.plot.setXRange(0, t_end, padding=0.02)
+            unit, size = time_unit(t_end)  # the unit the run's slider and chart use
+            self._time_size = size
+            self.plot.setLabel("bottom", f"time ({unit})")
+            self.curve.setData(np.asarray(t, float) / size, v)
+            self.plot.setXRange(0, t_end / size, padding=0.02)
             lo, hi = float(np.min(v)), float(np.max(v))
             pad = 0.1 * (hi - lo) if hi > lo else max(abs(hi) * 0.1, 1.0)
             self.plot.setYRange(min(lo, 0.0) - pad * 0.2, hi + pad, padding=0)
-            self.preview_note.setText(f"preview over the study's {t_end:g} s")
+            self.preview_note.setText(f"preview over the study's {format_time(t_end, t_end)}")
 
     def _show_page(self, i: int) -> None:
         """Show page ``i`` and let the stack take that page's height (not the tallest page's)."""

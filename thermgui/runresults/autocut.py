@@ -64,3 +64,33 @@ def revealing_cut_z(point_mm, points_mm, part_bounds_mm=None, margin_mm: float =
     fraction = math.ceil(round(100.0 * (plane - lo) / (hi - lo), 9)) / 100.0
     fraction = min(max(fraction, min_fraction), 1.0)
     return fraction, lo + fraction * (hi - lo)
+
+
+def likely_hot_spot(model) -> tuple[str, tuple[float, float, float]] | None:
+    """Before any result: the heated part with the highest power density (largest level of its
+    profile over its box volume, W/mm³) and the centre of its top face (mm) - where the first hot
+    spot will be. ``model`` is a validated :class:`solver.model.Model`; None without heat loads."""
+    from solver.model import profile_levels
+
+    best = None
+    for hl in model.heat_loads:
+        try:
+            p = model.parts[model.part_index(hl.part)]
+        except (KeyError, ValueError):
+            continue
+        volume = float(np.prod(p.size_mm))
+        density = max(profile_levels(hl.profile)) / volume if volume > 0 else 0.0
+        if density > 0 and (best is None or density > best[0]):
+            o, sz = p.origin_mm, p.size_mm
+            top = (float(o[0] + sz[0] / 2), float(o[1] + sz[1] / 2), float(o[2] + sz[2]))
+            best = (density, p.name, top)
+    return None if best is None else (best[1], best[2])
+
+
+def box_visible(bounds_mm, points_mm, tol_mm: float = 1e-6) -> bool:
+    """True when a part's box (x0, x1, y0, y1, z0, z1) touches the bounding box of the mesh nodes,
+    so some face of it is seen from outside without a cut."""
+    pts = np.asarray(points_mm, dtype=float)
+    lo, hi = pts.min(axis=0), pts.max(axis=0)
+    b = np.asarray(bounds_mm, dtype=float).reshape(3, 2)
+    return bool(np.any(b[:, 0] <= lo + tol_mm) or np.any(b[:, 1] >= hi - tol_mm))

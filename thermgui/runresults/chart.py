@@ -1,4 +1,8 @@
-"""Part maxima (°C) against time, with ratings as dashed limit lines and a time cursor."""
+"""Part maxima (°C) against time, with ratings as dashed limit lines and a time cursor.
+
+Parts that share a rating share one limit line and one label; parts over their rating or at
+risk are drawn heavier and named so in the legend; where the peak table gives an error band,
+it is shaded around the curve. Before any run the chart says what it will show."""
 from __future__ import annotations
 
 import numpy as np
@@ -10,6 +14,9 @@ from .timefmt import time_unit
 # Distinguishable line colours (our own pick), cycled over the shown parts.
 LINE_COLOURS = ["#1f5fa8", "#c4512b", "#2c8a4b", "#8a3fa0", "#b08900", "#2a8f9e", "#7a4b2a", "#5c6770"]
 CURSOR_COLOUR = "#444444"
+SHARED_LIMIT_COLOUR = "#555555"
+VERDICT_WORDS = {"over": "OVER", "at-risk": "AT RISK"}
+EMPTY_TEXT = "Part temperatures appear here while the model runs (Run, F5)."
 
 
 class PartChart(pg.PlotWidget):
@@ -29,19 +36,51 @@ class PartChart(pg.PlotWidget):
         self.plotItem.hideButtons()
         self.scene().sigMouseClicked.connect(self._on_click)
         self.curves: dict[str, pg.PlotDataItem] = {}
-        self.limits: dict[str, pg.InfiniteLine] = {}
+        self.limits: dict[str, pg.InfiniteLine] = {}  # part -> its limit line (shared by equal ratings)
+        self.limit_lines: dict[float, pg.InfiniteLine] = {}  # rating -> line
+        self.bands: dict[str, tuple] = {}  # part -> (lower curve, upper curve, fill) of the error band
         self._unit = ("s", 1.0)
+        self._verdicts: dict[str, str] = {}
+        self._errors: dict[str, float] = {}
+        self.empty_text = pg.TextItem(EMPTY_TEXT, color="#5a6472", anchor=(0.5, 0.5))
+        self.show_empty(True)
 
-    def show_parts(self, names, times, part_max, part_names, ratings, span_s: float | None = None) -> None:
+    def show_empty(self, on: bool) -> None:
+        """Before any run: a sentence instead of empty 0-1 axes."""
+        self.is_empty = on
+        for side in ("left", "bottom"):
+            self.plotItem.showAxis(side, not on)
+        self.plotItem.showGrid(x=not on, y=not on, alpha=0.25)
+        if on:
+            self.plotItem.clear()
+            self.curves, self.limits, self.limit_lines, self.bands = {}, {}, {}, {}
+            self._key = None
+            self.plotItem.setTitle(None)
+            self.plotItem.addItem(self.empty_text, ignoreBounds=True)
+            self.plotItem.setXRange(0, 1, padding=0)
+            self.plotItem.setYRange(0, 1, padding=0)
+            self.empty_text.setPos(0.5, 0.5)
+        elif self.empty_text.scene() is not None:
+            self.plotItem.removeItem(self.empty_text)
+
+    def show_parts(self, names, times, part_max, part_names, ratings, span_s: float | None = None,
+                   verdicts: dict | None = None, errors: dict | None = None) -> None:
         """Curves for ``names``: ``times`` (T,) s, ``part_max`` (T, P) °C; ``ratings`` name → °C or None;
-        ``span_s`` the time axis length (the run's duration, so a streaming run fills it left to right).
+        ``span_s`` the time axis length (the run's duration, so a streaming run fills it left to right);
+        ``verdicts`` name → over / at-risk / ok / unrated and ``errors`` name → K (the peak table's
+        error band) once the run has finished.
 
-        The plot items are rebuilt only when the choice of parts or the time unit changes; new
-        output times only replace the curves' data (cheap while a run streams in)."""
+        The plot items are rebuilt only when the choice of parts, their verdicts or the time unit
+        change; new output times only replace the curves' data (cheap while a run streams in)."""
+        verdicts, errors = dict(verdicts or {}), dict(errors or {})
+        if self.is_empty:
+            self.show_empty(False)
         span = float(span_s) if span_s else (float(times[-1]) if len(times) else 0.0)
         unit = time_unit(span)
-        key = (tuple(names), tuple(ratings.get(n) for n in names), unit)
+        key = (tuple(names), tuple(ratings.get(n) for n in names), unit,
+               tuple(verdicts.get(n) for n in names), tuple(errors.get(n) for n in names))
         if key != getattr(self, "_key", None):
+            self._verdicts, self._errors = verdicts, errors
             self._rebuild(names, ratings, unit)
             self._key = key
         t = np.asarray(times, float) / self._unit[1]
@@ -49,6 +88,11 @@ class PartChart(pg.PlotWidget):
             j = part_names.index(name)
             y = part_max[:, j] if len(times) else np.zeros(0)
             curve.setData(t, y, symbol="o" if len(t) < 40 else None)
+            if name in self.bands:
+                err = self._errors[name]
+                lower, upper, _ = self.bands[name]
+                lower.setData(t, y - err)
+                upper.setData(t, y + err)
         shown = part_max[:, [part_names.index(n) for n in names]] if len(times) and names else np.zeros(0)
         ys = [float(np.nanmin(shown)), float(np.nanmax(shown))] if np.isfinite(shown).any() else []
         ys += [r for r in (ratings.get(n) for n in names) if r is not None]
@@ -63,23 +107,50 @@ class PartChart(pg.PlotWidget):
     def _rebuild(self, names, ratings, unit) -> None:
         self.plotItem.clear()
         self.plotItem.addItem(self.cursor, ignoreBounds=True)
-        self.curves, self.limits = {}, {}
+        self.curves, self.limits, self.limit_lines, self.bands = {}, {}, {}, {}
         self._unit = unit
         self.plotItem.setLabel("bottom", "Time", units=unit[0])
         keys = []  # the legend sits above the plot as a title line, so it never covers a curve
+        colours = {}
         for k, name in enumerate(names):
-            colour = LINE_COLOURS[k % len(LINE_COLOURS)]
-            keys.append(f"<span style='color:{colour}'>━ {_html(name)}</span>")
-            self.curves[name] = self.plotItem.plot([], [], pen=pg.mkPen(colour, width=2),
-                                                   symbolSize=4, symbolBrush=colour, symbolPen=None)
+            colour = colours[name] = LINE_COLOURS[k % len(LINE_COLOURS)]
+            verdict = self._verdicts.get(name)
+            heavy = verdict in VERDICT_WORDS
+            word = f" <b>{VERDICT_WORDS[verdict]}</b>" if heavy else ""
+            keys.append(f"<span style='color:{colour}'>{'▬' if heavy else '━'} {_html(name)}{word}</span>")
+            err = self._errors.get(name)
+            if err and err > 0:  # the error band, under the curve
+                pen = pg.mkPen(None)
+                lower, upper = pg.PlotDataItem([], [], pen=pen), pg.PlotDataItem([], [], pen=pen)
+                fill = pg.FillBetweenItem(lower, upper, brush=pg.mkBrush(pg.mkColor(colour).red(),
+                                                                         pg.mkColor(colour).green(),
+                                                                         pg.mkColor(colour).blue(), 45))
+                for item in (lower, upper, fill):
+                    self.plotItem.addItem(item)
+                self.bands[name] = (lower, upper, fill)
+            self.curves[name] = self.plotItem.plot([], [], pen=pg.mkPen(colour, width=4 if heavy else 1.8),
+                                                   symbolSize=5 if heavy else 4, symbolBrush=colour, symbolPen=None)
+            if heavy:
+                self.curves[name].setZValue(10)
+        by_rating: dict[float, list] = {}
+        for name in names:
             r = ratings.get(name)
             if r is not None:
-                line = pg.InfiniteLine(pos=r, angle=0, movable=False,
-                                       pen=pg.mkPen(colour, width=1.5, style=Qt.DashLine),
-                                       label=f"{name} limit {r:g} °C",
-                                       labelOpts={"position": 0.05, "color": colour, "anchors": [(0, 1), (0, 1)]})
-                self.plotItem.addItem(line)
-                self.limits[name] = line
+                by_rating.setdefault(float(r), []).append(name)
+        for k, (r, parts) in enumerate(sorted(by_rating.items())):
+            # one line and one label per rating value: equal ratings no longer print on top of each other
+            colour = colours[parts[0]] if len(parts) == 1 else SHARED_LIMIT_COLOUR
+            label = (f"{parts[0]} limit {r:g} °C" if len(parts) == 1 else
+                     f"limit {r:g} °C: " + ", ".join(parts) if len(parts) <= 3 else
+                     f"limit {r:g} °C: {len(parts)} parts")
+            line = pg.InfiniteLine(pos=r, angle=0, movable=False, pen=pg.mkPen(colour, width=1.5, style=Qt.DashLine),
+                                   label=label,
+                                   labelOpts={"position": 0.03 + 0.32 * (k % 3), "color": colour,
+                                              "anchors": [(0, 1), (0, 1)]})  # staggered: near ratings stay legible
+            self.plotItem.addItem(line)
+            self.limit_lines[r] = line
+            for n in parts:
+                self.limits[n] = line
         title = "&nbsp;&nbsp;".join(keys) + ("&nbsp;&nbsp;<span style='color:#555'>- - rating</span>"
                                             if self.limits else "")
         self.plotItem.setTitle(title, size="9pt")

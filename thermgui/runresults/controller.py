@@ -7,15 +7,22 @@ fills a :class:`~thermgui.runresults.store.ResultsStore` and presents it: field 
 """
 from __future__ import annotations
 
+import shutil
 import tempfile
+import time
 from pathlib import Path
+
+import numpy as np
 
 from PySide6.QtCore import QEvent, QObject, Qt, QTimer
 from PySide6.QtGui import QAction, QKeySequence
 from PySide6.QtWidgets import (QCheckBox, QComboBox, QHBoxLayout, QLabel, QSizePolicy, QSlider, QSplitter,
                                QStyle, QVBoxLayout, QWidget)
 
-from .autocut import hottest_spot, revealing_cut_z
+from solver.results import PEAK_COLUMNS
+
+from ..fileops import display_path
+from .autocut import box_visible, hottest_spot, likely_hot_spot, revealing_cut_z
 from .chart import PartChart
 from .fieldview import FieldView, build_display
 from .messages import item_for_path
@@ -30,6 +37,8 @@ from .worker import RunWorker, start_worker
 LIVE_REDRAW_MS = 300  # shortest pause between live redraws while a run streams frames
 LIVE_DUTY = 0.05  # live redraws aim at this share of the wall time (the solve shares the CPU) ...
 LIVE_LONGEST_MS = 10000  # ... but the view is refreshed at least this often while a run streams
+TEMP_PREFIX = "thermgui-run-"  # temporary results folders of unsaved models
+STALE_TEMP_S = 7 * 86400  # such folders left behind by a session that ended abnormally go after a week
 CUT_CHOICES = [("Whole model", None), ("Cut across x", "x"), ("Cut across y", "y"), ("Cut across z", "z")]
 
 
@@ -45,7 +54,7 @@ class ResultsController(ResultFiles, QObject):
         self._live = None  # (time_s, field) newest preview between outputs
         self._reveal_pending = False  # a run has started: show the field with its first frame
         self._new_outputs = False
-        self._marked: set = set()
+        self._marked = (frozenset(), frozenset())  # (over, at risk) marked in tree and view
         self._chart_parts: list[str] | None = None  # None: default choice
         self._user_cut = False  # the user has chosen a cut (or Whole model) in "Look inside"
         self._auto_cutting = False
@@ -58,6 +67,8 @@ class ResultsController(ResultFiles, QObject):
         self._redraw.timeout.connect(self._live_refresh)
         self._results_model: dict | None = None  # the model dict the shown results were computed for
         self._checked_path = None
+        self._temp_roots: list[Path] = []
+        clean_stale_temp_runs()
         doc = window.document
         if hasattr(doc, "changed"):
             doc.changed.connect(self._on_model_changed)
@@ -74,8 +85,9 @@ class ResultsController(ResultFiles, QObject):
         w = self.window
         self.status = RunStatus()
         self.timeline = TimelineBar()
-        self.rescale_box = QCheckBox("Rescale colours to each frame")
-        self.rescale_box.setToolTip("Off: one colour scale over the whole run, so frames compare")
+        self.rescale_box = QCheckBox("Rescale per frame")
+        self.rescale_box.setToolTip("On: the colour scale spans each frame alone. Off: one colour scale over the "
+                                    "whole run, so frames compare")
         self.cut_choice = QComboBox()
         for label, _ in CUT_CHOICES:
             self.cut_choice.addItem(label)
@@ -85,19 +97,20 @@ class ResultsController(ResultFiles, QObject):
         self.cut_slider.setValue(50)
         self.cut_slider.setEnabled(False)
         self.cut_slider.setToolTip("Position of the cut plane (share of the extent kept)")
-        self.cut_slider.setMaximumWidth(160)
-        options = QHBoxLayout()
+        self.cut_slider.setMaximumWidth(120)
+        options = QHBoxLayout()  # one row: time slider, then how the field is drawn
+        options.addWidget(self.timeline, 1)
+        options.addSpacing(12)
         options.addWidget(self.rescale_box)
-        options.addSpacing(16)
+        options.addSpacing(12)
         options.addWidget(QLabel("Look inside:"))
         options.addWidget(self.cut_choice)
         options.addWidget(self.cut_slider)
-        options.addStretch(1)
         run_box = QWidget()
         lay = QVBoxLayout(run_box)
-        lay.setContentsMargins(6, 4, 6, 4)
+        lay.setContentsMargins(6, 2, 6, 2)
+        lay.setSpacing(3)
         lay.addWidget(self.status)
-        lay.addWidget(self.timeline)
         lay.addLayout(options)
         lay.addWidget(self.status.caution)
         self.chart = PartChart()
@@ -109,11 +122,13 @@ class ResultsController(ResultFiles, QObject):
         split.addWidget(self.table)
         split.setStretchFactor(0, 2)
         split.setStretchFactor(1, 3)
+        self.results_split = split
         self.run_dock = w.add_dock(run_box, Qt.BottomDockWidgetArea, "Run and time")
         self.results_dock = w.add_dock(split, Qt.BottomDockWidgetArea, "Temperatures and peaks")
         if self.run_dock is not None and self.results_dock is not None and hasattr(w, "splitDockWidget"):
             w.splitDockWidget(self.run_dock, self.results_dock, Qt.Vertical)  # run bar above, full width
             w.resizeDocks([self.run_dock, self.results_dock], [175, 250], Qt.Vertical)
+            w.fit_result_docks = self.fit_docks
         self.timeline.indexChanged.connect(self.show_index)
         self.rescale_box.toggled.connect(lambda _: self.show_index(self.timeline.index))
         self.cut_choice.currentIndexChanged.connect(self._on_cut)
@@ -122,6 +137,22 @@ class ResultsController(ResultFiles, QObject):
         self.chart.timeClicked.connect(self._on_chart_click)
         self.table.exportRequested.connect(self._ask_export)
         self.table.partsSelected.connect(self._on_table_parts)
+
+    def fit_docks(self, width: int, height: int) -> None:
+        """Heights of the two result docks for a window ``height`` px tall: the run bar as tall as it
+        needs, chart and table about 28 % of the window (190-360 px); the 3D view keeps the rest."""
+        run_h = self.run_dock.widget().sizeHint().height() + 24
+        res_h = int(min(360, max(190, 0.28 * height)))
+        self.window.resizeDocks([self.run_dock, self.results_dock], [run_h, res_h], Qt.Vertical)
+        self.fit_table()
+
+    def fit_table(self) -> None:
+        """Give the peak table the width its columns need (the chart keeps at least 320 px)."""
+        total = sum(self.results_split.sizes())
+        if total <= 0:
+            return
+        table = min(self.table.needed_width(), max(total // 2, total - 320))
+        self.results_split.setSizes([total - table, table])
 
     def _build_actions(self) -> None:
         w = self.window
@@ -142,11 +173,19 @@ class ResultsController(ResultFiles, QObject):
         self.export_action = QAction("&Export Peak Table…", w)
         self.export_action.setEnabled(False)
         self.picture_action = QAction("Save View as &Picture…", w)
+        self.report_action = QAction("Export &Report…", w)
+        self.report_action.setToolTip("Write one self-contained HTML design-review report of the finished run")
+        self.report_action.setEnabled(False)
         for a in (self.run_action, self.stop_action, self.show_action):
             menu.addAction(a)
         menu.addSeparator()
-        for a in (self.open_action, self.export_action):
+        for a in (self.open_action, self.export_action, self.report_action):
             menu.addAction(a)
+        file_menu = w.menus.get("file") if isinstance(getattr(w, "menus", None), dict) else None
+        if file_menu is not None:  # File ▸ Export Report…, above Quit
+            quit_action = next((a for a in file_menu.actions() if a.text().replace("&", "") == "Quit"), None)
+            file_menu.insertAction(quit_action, self.report_action)
+            file_menu.insertSeparator(quit_action)
         if not callable(getattr(w, "save_picture", None)):  # the window may already offer one
             menu.addAction(self.picture_action)
         w.toolbar.addSeparator()
@@ -158,6 +197,7 @@ class ResultsController(ResultFiles, QObject):
         self.open_action.triggered.connect(self._ask_open)
         self.export_action.triggered.connect(self._ask_export)
         self.picture_action.triggered.connect(self._ask_picture)
+        self.report_action.triggered.connect(self._ask_report)
 
     # ------------------------------------------------------------ running
     @property
@@ -165,11 +205,25 @@ class ResultsController(ResultFiles, QObject):
         return self.thread is not None
 
     def results_folder(self) -> Path:
-        """``<model stem>.results`` beside the model file, or a fresh temporary folder if unsaved."""
+        """``<model stem>.results`` beside the model file, or a fresh temporary folder if unsaved
+        (the previous one of this window is removed: only the newest unsaved run is kept, and it
+        goes when the window closes)."""
         path = getattr(self.window.document, "path", None)
         if path:
             return results_folder_for(path)
-        return Path(tempfile.mkdtemp(prefix="thermgui-run-")) / "untitled.results"
+        self.remove_temp_folders()
+        root = Path(tempfile.mkdtemp(prefix=TEMP_PREFIX))
+        self._temp_roots.append(root)
+        return root / "untitled.results"
+
+    def remove_temp_folders(self) -> None:
+        """Delete the temporary results folders of this window's unsaved runs."""
+        shown = getattr(self.store, "folder", None)
+        for root in list(self._temp_roots):
+            if self.running and shown is not None and root in Path(shown).parents:
+                continue
+            shutil.rmtree(root, ignore_errors=True)
+            self._temp_roots.remove(root)
 
     def start_run(self) -> bool:
         """Start solving the document's model on a worker thread; False if it could not start."""
@@ -186,6 +240,10 @@ class ResultsController(ResultFiles, QObject):
         self.status.preparing("Meshing and assembling the model…")
         self._pending_model = model.to_json_dict()
         cut = self.view.cut
+        # unless the user chose a cut: cut from the first frame where the hottest part will be
+        # hidden inside (the heated part with the highest power density), so the live view shows it
+        hot = None if self._user_cut else likely_hot_spot(model)
+        min_fraction = self.cut_slider.minimum() / 100
 
         cleared = []
 
@@ -194,7 +252,14 @@ class ResultsController(ResultFiles, QObject):
                 clear_old_results(out_dir)  # only now: a refused run leaves the earlier results alone
                 cleared.append(True)
             store = ResultsStore.for_problem(session.problem, session.out_dir)
-            return store, build_display(store.points_mm, store.tets, cut)
+            use, auto = cut, None
+            bounds = store.part_bounds_mm.get(hot[0]) if hot is not None else None
+            if bounds is not None and not box_visible(bounds, store.points_mm):
+                found = revealing_cut_z(hot[1], store.points_mm, bounds, min_fraction=min_fraction)
+                if found is not None:
+                    auto = (hot[0], found)
+                    use = ("z", found[0])
+            return store, build_display(store.points_mm, store.tets, use), auto
 
         self.worker = RunWorker(model.model_copy(deep=True), out_dir, prepare=prepare)
         self.worker.prepared.connect(self._on_prepared)
@@ -222,14 +287,26 @@ class ResultsController(ResultFiles, QObject):
         return self.thread.wait(timeout_ms)
 
     def shutdown(self) -> None:
-        """Stop a run in progress and wait for its thread (call before the window goes)."""
+        """Stop a run in progress and wait for its thread (call before the window goes); removes
+        the temporary folders of unsaved runs."""
         if self.running:
             self.stop_run()
             self.wait()
             self._on_thread_finished()
+        self.remove_temp_folders()
 
     def _on_prepared(self, session, prepared) -> None:
-        self.store, display = prepared
+        self.store, display, auto = prepared
+        if auto is not None:  # the live view starts cut (the controls show the cut)
+            self._set_cut_controls("z", auto[1][0])
+            self._auto_note = (f"; view cut at z = {auto[1][1]:.1f} mm to show {auto[0]}; "
+                               "choose Whole model to see the outside")
+            if self.view.cut != ("z", auto[1][0]):
+                self.view.cut = ("z", auto[1][0])
+                if self.view._same_mesh(display.grid):  # the drawn surface is kept: cut it here
+                    self.view.set_cut("z", auto[1][0])
+        else:
+            self._auto_note = ""
         self._stepper = session.stepper  # read after the run: how it was solved
         self._results_model = self._pending_model
         self._live = None
@@ -240,6 +317,7 @@ class ResultsController(ResultFiles, QObject):
             self._status_bar(f"Warning: {warning}")
         self.table.set_rows(None)
         self.export_action.setEnabled(False)
+        self.report_action.setEnabled(False)
         self.timeline.set_times([], self.store.duration_s)
         self.show_action.setEnabled(True)
         # keep the boxes until the first frame arrives: drawing the empty field now would cost the
@@ -270,7 +348,9 @@ class ResultsController(ResultFiles, QObject):
         if self._reveal_pending:  # the first frame of a run: switch the view to the field now
             self._reveal_pending = False
             self.set_results_shown(True, paint=False)
-        following = self.timeline.index >= s.n_frames - 2 or not self.timeline.isEnabled()
+        # following the newest output: judged against what the slider offered until now (frames
+        # arrive in bunches between paced redraws, so the store's count would say "not following")
+        following = not self.timeline.isEnabled() or self.timeline.index >= self.timeline.slider.maximum() - 1
         if self._new_outputs:
             self._new_outputs = False
             self.timeline.blockSignals(True)
@@ -280,9 +360,8 @@ class ResultsController(ResultFiles, QObject):
         if following and self._live is not None and self._live[0] > s.times[-1]:
             t, f = self._live
             lo, hi = s.colour_range(None, False)
-            self.view.show_field(f, (min(lo, float(f.min())), max(hi, float(f.max()))), paint=False)
-            self.view.set_caption(f"t = {format_time(t, s.duration_s)} (computing)")
-            self.chart.set_cursor(t)
+            self.view.show_field(f, live_colour_range(lo, hi, f), paint=False)
+            self._show_time(t, computing=True)
         elif following or not self.running:
             self._show(self.timeline.index, paint=False)
         else:
@@ -300,15 +379,19 @@ class ResultsController(ResultFiles, QObject):
         self._live = None
         self._new_outputs = True
         self._live_refresh()
-        self.table.set_rows(s.peak_rows)
+        self.table.set_rows(s.peak_rows, s.duration_s)
+        self.fit_table()
         self.export_action.setEnabled(True)
+        self.report_action.setEnabled(True)
         over = s.ever_over()
         note = f"; over rating: {', '.join(sorted(over))}" if over else "; no part over its rating"
         st = getattr(self, "_stepper", None)
         if st is not None and st.method == "reduced" and st.reduced_info is not None:
             note += f". Solved by a {st.reduced_info.describe()}"
-        self.status.finished(f"Finished: {s.n_frames} outputs, kept in {s.folder.name}{note}"
-                             + self._auto_cut())
+        where = display_path(s.folder)
+        if any(r in s.folder.parents for r in self._temp_roots):
+            where += " (temporary: removed when the window closes; save the model to keep results beside it)"
+        self.status.finished(f"Finished: {s.n_frames} outputs, kept in {where}{note}" + self._auto_cut())
         self.status.detail.setToolTip(str(s.folder))
         self.show_index(self.timeline.index)
 
@@ -354,7 +437,7 @@ class ResultsController(ResultFiles, QObject):
         if on and self.store is not None and self.store.n_frames:
             self._show(self.timeline.index, paint=paint)
         elif not on:
-            self._mark(set())
+            self._mark(set(), set())
 
     def show_index(self, i: int) -> None:
         """Draw output ``i``: field, colour range, time, parts over their rating, chart cursor."""
@@ -366,31 +449,50 @@ class ResultsController(ResultFiles, QObject):
             return
         i = max(0, min(i, s.n_frames - 1))
         clim = s.colour_range(i, self.rescale_box.isChecked())
+        if self.running and not self.rescale_box.isChecked():
+            clim = live_colour_range(clim[0], clim[1], s.frame(i))
         self.view.show_field(s.frame(i), clim, paint=paint)
         t = s.times[i]
-        self.view.set_caption(f"t = {format_time(t, s.duration_s)}" + ("   (model changed since)" if self.stale else ""))
-        over = s.over_at(i)
-        self._mark(over)
+        self._show_time(t)
+        over, at_risk = s.verdicts_at(i)
+        self._mark(over, at_risk)
         self.chart.set_cursor(t)
 
-    def _mark(self, over: set) -> None:
-        """Mark parts over their rating in the view (frames, caption) and in the item list."""
+    def _show_time(self, t: float, computing: bool = False) -> None:
+        """The time of the drawn field, the same text in the view's caption and beside the slider,
+        and the chart's cursor there."""
+        s = self.store
+        text = f"t = {format_time(t, s.duration_s)}" + (" (computing)" if computing else "")
+        self.view.set_caption(text + ("   (model changed since)" if self.stale and not computing else ""))
+        self.timeline.show_time_text(text if computing else None)
+        self.chart.set_cursor(t)
+
+    def _mark(self, over: set, at_risk: set = frozenset()) -> None:
+        """Mark parts over their rating (red) and at risk (amber) in the view (frames, caption) and
+        in the item list."""
         s = self.store
         w = self.window
         i = self.timeline.index
-        if over and s is not None:
-            bits = [f"{n} {s.part_max[i][s.part_names.index(n)]:.1f} °C > {s.rating(n):g} °C" for n in sorted(over)]
-            self.view.set_over_caption("OVER RATING: " + "; ".join(bits))
-        else:
-            self.view.set_over_caption("")
-        if over == self._marked:
+        lines = []
+        if s is not None and s.n_frames:
+            i = max(0, min(i, s.n_frames - 1))
+            temp = lambda n: s.part_max[i][s.part_names.index(n)]  # noqa: E731
+            if over:
+                lines.append("OVER RATING: " + "; ".join(f"{n} {temp(n):.1f} °C > {s.rating(n):g} °C"
+                                                         for n in sorted(over)))
+            if at_risk:
+                lines.append("AT RISK: " + "; ".join(f"{n} {temp(n):.1f} ± {s.error_k(n):.1f} °C near {s.rating(n):g} °C"
+                                                     for n in sorted(at_risk)))
+        self.view.set_over_caption("\n".join(lines))
+        key = (frozenset(over), frozenset(at_risk))
+        if key == self._marked:
             return
-        self._marked = set(over)
+        self._marked = key
         if hasattr(w.viewport, "highlight_parts"):
-            w.viewport.highlight_parts(set(over))
+            w.viewport.highlight_parts(set(over), set(at_risk))
         tree = getattr(w, "item_tree", None)
         if tree is not None and hasattr(tree, "mark_parts"):
-            tree.mark_parts(set(over))
+            tree.mark_parts(set(over), set(at_risk))
 
     def shown_over(self) -> set:
         """Parts marked over their rating at the shown time."""
@@ -405,8 +507,13 @@ class ResultsController(ResultFiles, QObject):
         if not names:
             names = s.rated_parts() or list(s.part_names)
         times, pmax = s.history()
+        verdicts, errors = {}, {}
+        if s.peak_rows:
+            k = PEAK_COLUMNS.index("status")
+            verdicts = {r[0]: r[k] for r in s.peak_rows}
+            errors = {n: s.error_k(n) for n in names}
         self.chart.show_parts(names, times, pmax, s.part_names, {n: s.rating(n) for n in names},
-                              span_s=s.duration_s)
+                              span_s=s.duration_s, verdicts=verdicts, errors=errors)
         if s.n_frames:
             self.chart.set_cursor(s.times[min(self.timeline.index, s.n_frames - 1)])
 
@@ -434,7 +541,7 @@ class ResultsController(ResultFiles, QObject):
         """Cut across z just above the hottest part when its hot spot is hidden inside the model and
         the user has not chosen a cut; returns the sentence for the status text ('' when no cut)."""
         s = self.store
-        if s is None or self._user_cut or self.cut_choice.currentIndex() != 0:
+        if s is None or self._user_cut:
             return ""
         hot = hottest_spot(s.peak_rows)
         if hot is None:
@@ -443,23 +550,31 @@ class ResultsController(ResultFiles, QObject):
         cut = revealing_cut_z(xyz, s.points_mm, s.part_bounds_mm.get(name),
                               min_fraction=self.cut_slider.minimum() / 100)
         if cut is None:
-            return ""
+            return getattr(self, "_auto_note", "") if self.cut_choice.currentIndex() != 0 else ""
         fraction, z_mm = cut
+        if self.view.cut == ("z", fraction):  # already cut there from the first frame
+            return (f"; view cut at z = {z_mm:.1f} mm to show the hottest part ({name}); "
+                    "choose Whole model to see the outside")
         self._auto_cutting = True
-        try:
-            for w in (self.cut_choice, self.cut_slider):
-                w.blockSignals(True)
-            self.cut_choice.setCurrentIndex([a for _, a in CUT_CHOICES].index("z"))
-            self.cut_slider.setValue(int(round(fraction * 100)))
-        finally:
-            for w in (self.cut_choice, self.cut_slider):
-                w.blockSignals(False)
+        self._set_cut_controls("z", fraction)
         try:
             self._on_cut()
         finally:
             self._auto_cutting = False
         return (f"; view cut at z = {z_mm:.1f} mm to show the hottest part ({name}); "
                 "choose Whole model to see the outside")
+
+    def _set_cut_controls(self, axis, fraction: float) -> None:
+        """Show a cut in the "Look inside" controls without acting on it."""
+        try:
+            for w in (self.cut_choice, self.cut_slider):
+                w.blockSignals(True)
+            self.cut_choice.setCurrentIndex([a for _, a in CUT_CHOICES].index(axis))
+            self.cut_slider.setValue(int(round(fraction * 100)))
+            self.cut_slider.setEnabled(axis is not None)
+        finally:
+            for w in (self.cut_choice, self.cut_slider):
+                w.blockSignals(False)
 
     def _on_cut(self, *_):
         if not self._auto_cutting:
@@ -475,6 +590,9 @@ class ResultsController(ResultFiles, QObject):
         return model is None or self._results_model is None or model.to_json_dict() != self._results_model
 
     def _on_model_changed(self) -> None:
+        model = getattr(self.window.document, "model", None)
+        if self.store is None and model is not None:  # the empty table's headings in the run's time unit
+            self.table.set_rows(None, float(model.run.duration_s))
         path = getattr(self.window.document, "path", None)
         if path != self._checked_path:  # a model was opened: reopen the results kept beside it
             self._checked_path = path
@@ -500,3 +618,35 @@ class ResultsController(ResultFiles, QObject):
         if obj is self.window and event.type() == QEvent.Close:
             self.shutdown()
         return False
+
+
+def clean_stale_temp_runs(max_age_s: float = STALE_TEMP_S) -> list[Path]:
+    """Remove temporary results folders of unsaved runs untouched for ``max_age_s`` seconds (left
+    behind by sessions that ended abnormally); returns the folders removed."""
+    gone = []
+    now = time.time()
+    try:
+        roots = list(Path(tempfile.gettempdir()).glob(TEMP_PREFIX + "*"))
+    except OSError:
+        return gone
+    for root in roots:
+        try:
+            newest = max([root.stat().st_mtime] + [p.stat().st_mtime for p in root.rglob("*")])
+        except OSError:
+            continue
+        if root.is_dir() and now - newest > max_age_s:
+            shutil.rmtree(root, ignore_errors=True)
+            gone.append(root)
+    return gone
+
+
+LIVE_MIN_SPAN_K = 5.0  # while a run streams, the colour scale spans at least this much above its cool end
+
+
+def live_colour_range(lo: float, hi: float, field) -> tuple[float, float]:
+    """Colour range (°C) for a frame drawn while the run goes on: the cool end stays where the run
+    started (ambient / initial temperature), the hot end follows the largest temperature so far,
+    and the span is at least LIVE_MIN_SPAN_K, so the first nearly uniform frames do not paint noise."""
+    f = np.asarray(field)
+    lo, hi = min(lo, float(f.min())), max(hi, float(f.max()))
+    return lo, max(hi, lo + LIVE_MIN_SPAN_K)

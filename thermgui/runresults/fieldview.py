@@ -14,11 +14,21 @@ import pyvista as pv
 
 SCALARS = "temperature_c"
 BAR_TITLE = "Temperature (°C)"
-COLOUR_MAP = "inferno"
+COLOUR_MAP = "inferno"  # a perceptually uniform map; its darkest tenth is left out (see colour_map)
+EDGE_COLOUR = "#3a4450"  # outlines of the drawn surface's corners and edges
 LABEL_COLOUR = "#1d2733"
 OVER_COLOUR = "#d0103a"
 AXES = {"x": 0, "y": 1, "z": 2}
 CORNERS = {"lower_left": 0, "lower_right": 1, "upper_left": 2, "upper_right": 3}
+
+
+def colour_map():
+    """The field's colour map: inferno without its near-black tenth, so parts still at the cool end
+    (ambient at the start of a run) keep visible shading instead of a black block."""
+    import matplotlib
+    from matplotlib.colors import ListedColormap
+
+    return ListedColormap(matplotlib.colormaps[COLOUR_MAP](np.linspace(0.12, 1.0, 256)), name="thermgui-field")
 
 
 @dataclass
@@ -88,10 +98,12 @@ class FieldView:
         self.surface: pv.PolyData | None = None
         self.point_ids: np.ndarray | None = None  # surface point → mesh node
         self.actor = None
+        self.edges_actor = None
         self.cut: tuple[str, float] | None = None  # (axis, fraction 0..1 of the extent kept)
         self._field: np.ndarray | None = None
         self._clim = (0.0, 1.0)
         self._caption = None
+        self.caption_text = ""
         self._over_caption = None
         self._over_text = None
         self.visible = False
@@ -138,9 +150,18 @@ class FieldView:
             self.plotter.remove_actor(self.actor, render=False)
             if BAR_TITLE in self.plotter.scalar_bars:  # else a new bar would merge the old range
                 self.plotter.remove_scalar_bar(BAR_TITLE, render=False)
+        if self.edges_actor is not None:
+            self.plotter.remove_actor(self.edges_actor, render=False)
         surf.point_data[SCALARS][:] = self._clim[0]
+        # the corners of parts and housing as thin lines: the structure shows whatever the colours
+        edges = surf.extract_feature_edges(feature_angle=30, boundary_edges=True, non_manifold_edges=False,
+                                           manifold_edges=False)
+        self.edges_actor = self.plotter.add_mesh(edges, color=EDGE_COLOUR, line_width=1, opacity=0.6,
+                                                 name="results::edges", render=False, pickable=False,
+                                                 reset_camera=False, lighting=False)
+        self.edges_actor.SetVisibility(self.visible)
         self.actor = self.plotter.add_mesh(
-            surf, scalars=SCALARS, cmap=COLOUR_MAP, clim=self._clim, show_edges=False, name="results::field",
+            surf, scalars=SCALARS, cmap=colour_map(), clim=self._clim, show_edges=False, name="results::field",
             render=False, pickable=False, reset_camera=False, lighting=True,
             scalar_bar_args={"title": BAR_TITLE, "color": LABEL_COLOUR, "vertical": True,
                              "position_x": 0.87, "position_y": 0.14, "height": 0.62, "width": 0.06,
@@ -176,6 +197,7 @@ class FieldView:
 
     def set_caption(self, text: str) -> None:
         """The shown time, in the lower right corner of the view."""
+        self.caption_text = text
         self._caption = self._corner_text(self._caption, text, "lower_right", LABEL_COLOUR, "results::time")
         self._caption.SetVisibility(self.visible)
 
@@ -199,7 +221,7 @@ class FieldView:
 
     def set_visible(self, on: bool) -> None:
         self.visible = on
-        for a in (self.actor, self._caption):
+        for a in (self.actor, self.edges_actor, self._caption):
             if a is not None:
                 a.SetVisibility(on)
         if self._over_caption is not None:

@@ -1,4 +1,7 @@
-"""The peak table (the columns of peaks.csv), sortable, with CSV export and tab-separated copy."""
+"""The peak table: one row per part in review order (over, at risk, ok by margin, unrated), columns
+that fit (the hot spot in one column, times in the slider's unit, the error band beside the
+peak), over rows in red and at-risk rows in amber; CSV export and tab-separated copy keep the
+exact rows of peaks.csv."""
 from __future__ import annotations
 
 from PySide6.QtCore import QEvent, Qt, Signal
@@ -8,35 +11,29 @@ from PySide6.QtWidgets import (QAbstractItemView, QHBoxLayout, QHeaderView, QLab
 
 from solver.results import PEAK_COLUMNS
 
+from .peakview import VERDICT_FILL, VERDICT_TEXT, columns, display_row, review_order
 from .store import peaks_tsv
 
-HEADINGS = {"part": "Part", "rated_c": "Rated °C", "peak_c": "Peak °C", "peak_time_s": "Peak at s",
-            "margin_k": "Margin K", "first_over_s": "First over s", "hotspot_x_mm": "Hot spot x mm",
-            "hotspot_y_mm": "y mm", "hotspot_z_mm": "z mm", "status": "Status",
-            "peak_error_k": "± K"}
-OVER_TEXT = QColor("#b0102f")
-OVER_FILL = QColor("#fde3e7")
-STATUS_COL = PEAK_COLUMNS.index("status")
+CSV_ROLE = Qt.UserRole + 1
+STATUS_COL = PEAK_COLUMNS.index("status")  # in the CSV rows
+TOOLTIPS = {"part": "part", "status": "status (over: above the rating even at the low end of the error band; "
+            "at risk: the rating lies inside peak ± error)", "rated": "rated_c", "peak": "peak_c ± peak_error_k",
+            "margin": "margin_k = rated - peak", "peak_time": "peak_time_s", "first_over": "first_over_s",
+            "hotspot": "hotspot_x_mm, hotspot_y_mm, hotspot_z_mm"}
 
 
 class _Cell(QTableWidgetItem):
-    """A cell that sorts numbers as numbers and puts empty cells last."""
+    """A cell that sorts by its key (numbers as numbers) and puts empty cells last."""
 
-    def __init__(self, text: str):
+    def __init__(self, text: str, key):
         super().__init__(text)
-        try:
-            self.key = (0, float(text))
-        except ValueError:
-            self.key = (1, 0.0) if text == "" else (0, text.lower())
+        self.key = (1,) if key is None else (0, key)
         self.setFlags(Qt.ItemIsSelectable | Qt.ItemIsEnabled)
-        if self.key[0] == 0 and isinstance(self.key[1], float):
+        if isinstance(key, float) or (isinstance(key, tuple) and key and isinstance(key[0], float)):
             self.setTextAlignment(Qt.AlignRight | Qt.AlignVCenter)
 
     def __lt__(self, other):
-        a, b = self.key, getattr(other, "key", (1, 0.0))
-        if type(a[1]) is not type(b[1]):
-            return isinstance(a[1], float)
-        return a < b
+        return self.key < getattr(other, "key", (1,))
 
 
 class PeakTable(QWidget):
@@ -47,22 +44,31 @@ class PeakTable(QWidget):
 
     def __init__(self, parent=None):
         super().__init__(parent)
-        self.table = QTableWidget(0, len(PEAK_COLUMNS))
-        self.table.setHorizontalHeaderLabels([HEADINGS[c] for c in PEAK_COLUMNS])
-        for i, c in enumerate(PEAK_COLUMNS):
-            self.table.horizontalHeaderItem(i).setToolTip(f"peaks.csv column: {c}")
+        self._span = 0.0
+        self._cols = columns(0.0)
+        self.table = QTableWidget(0, len(self._cols))
+        self._set_headings()
         self.table.setSortingEnabled(True)
+        self.table.horizontalHeader().setSortIndicator(1, Qt.AscendingOrder)
         self.table.setSelectionBehavior(QAbstractItemView.SelectRows)
         self.table.verticalHeader().setVisible(False)
-        self.table.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeToContents)
-        self.table.horizontalHeader().setStretchLastSection(True)
+        self.table.verticalHeader().setDefaultSectionSize(self.table.fontMetrics().height() + 6)
+        header = self.table.horizontalHeader()
+        header.setSectionResizeMode(QHeaderView.ResizeToContents)
+        header.setSectionResizeMode(0, QHeaderView.Stretch)  # the part name takes what is left
+        header.setMinimumSectionSize(36)
+        # the style's sort arrow reserves about 34 px in every column; the sorted column's heading
+        # carries a small arrow of its own instead, so the columns fit
+        header.setSortIndicatorShown(False)
+        header.sortIndicatorChanged.connect(lambda *_: self._set_headings())
+        self._set_headings()
         self.table.setAlternatingRowColors(False)
-        self.table.horizontalHeader().moveSection(STATUS_COL, 1)  # shown next to the part; CSV order kept
+        self.table.setHorizontalScrollMode(QAbstractItemView.ScrollPerPixel)
         self.summary = QLabel("The peak table appears when a run finishes.")
         self.summary.setWordWrap(True)
         self.export_button = QPushButton("Export CSV…")
         self.copy_button = QPushButton("Copy table")
-        self.copy_button.setToolTip("Copy as tab-separated text, for pasting into a spreadsheet")
+        self.copy_button.setToolTip("Copy as tab-separated text (the columns of peaks.csv), for a spreadsheet")
         self.export_button.setEnabled(False)
         self.copy_button.setEnabled(False)
         row = QHBoxLayout()
@@ -78,54 +84,92 @@ class PeakTable(QWidget):
         self.copy_button.clicked.connect(self.copy_to_clipboard)
         self.table.itemSelectionChanged.connect(self._on_selection)
 
-    def set_rows(self, rows) -> None:
-        """Rows of peaks.csv as strings (None: cleared)."""
+    def _set_headings(self) -> None:
+        header = self.table.horizontalHeader()
+        sec, order = header.sortIndicatorSection(), header.sortIndicatorOrder()
+        arrow = " ▲" if order == Qt.AscendingOrder else " ▼"
+        self.table.setHorizontalHeaderLabels([(h.replace("\n", arrow + "\n", 1) if "\n" in h else h + arrow)
+                                              if i == sec else h for i, (_, h) in enumerate(self._cols)])
+        for i, (k, _) in enumerate(self._cols):
+            self.table.horizontalHeaderItem(i).setToolTip(f"peaks.csv: {TOOLTIPS[k]}")
+
+    def needed_width(self) -> int:
+        """Width in px at which every column shows whole (the part names too)."""
+        t = self.table
+        names = [t.item(r, 0).text() for r in range(t.rowCount())] or ["radio module"]
+        part = max(t.fontMetrics().horizontalAdvance(n) for n in names) + 16
+        rest = sum(t.columnWidth(c) for c in range(1, t.columnCount()))
+        return part + rest + t.verticalScrollBar().sizeHint().width() + 2 * t.frameWidth() + 4
+
+    def column(self, key: str) -> int:
+        return [k for k, _ in self._cols].index(key)
+
+    def set_rows(self, rows, span_s: float | None = None) -> None:
+        """Rows of peaks.csv as strings (None: cleared); ``span_s`` the run's duration (time unit)."""
+        if span_s is not None:
+            self._span = float(span_s)
+            self._cols = columns(self._span)
+            self._set_headings()
         self.table.setSortingEnabled(False)
         self.table.setRowCount(0)
         rows = rows or []
+        order = review_order(rows)
+        rank = {i: r for r, i in enumerate(order)}
         self.table.setRowCount(len(rows))
         bold = QFont(self.table.font())
         bold.setBold(True)
-        for r, row in enumerate(rows):
-            over = row[STATUS_COL] == "over"
-            for c, text in enumerate(row):
-                cell = _Cell(text)
-                if over:
-                    cell.setForeground(QBrush(OVER_TEXT))
-                    cell.setBackground(QBrush(OVER_FILL))
-                    cell.setFont(bold)
-                    if c == STATUS_COL:
-                        cell.setText("OVER")
+        for r, i in enumerate(order):
+            shown = display_row(rows[i], self._span)
+            verdict = shown["_verdict"]
+            for c, (key, _) in enumerate(self._cols):
+                text, skey = shown[key]
+                cell = _Cell(text, rank[i] if key == "status" else skey)
+                if verdict in VERDICT_TEXT:
+                    cell.setForeground(QBrush(QColor(VERDICT_TEXT[verdict])))
+                    cell.setBackground(QBrush(QColor(VERDICT_FILL[verdict])))
+                    if verdict == "over":
+                        cell.setFont(bold)
+                if c == 0:
+                    cell.setData(CSV_ROLE, list(rows[i]))
+                    cell.setToolTip(rows[i][0])
                 self.table.setItem(r, c, cell)
         self.table.setSortingEnabled(True)
+        self.table.horizontalHeader().setSortIndicatorShown(False)  # our own arrow (see __init__)
+        self.table.horizontalHeader().setSortIndicator(self.column("status"), Qt.AscendingOrder)
         n_over = sum(1 for row in rows if row[STATUS_COL] == "over")
+        n_risk = sum(1 for row in rows if row[STATUS_COL] == "at-risk")
         if not rows:
             self.summary.setText("The peak table appears when a run finishes.")
-        elif n_over:
-            self.summary.setText(f"<b style='color:#b0102f'>{n_over} part(s) exceeded their rating</b> "
-                                 "during the run (rows in red).")
+        elif n_over or n_risk:
+            bits = []
+            if n_over:
+                bits.append(f"<b style='color:{VERDICT_TEXT['over']}'>{n_over} part(s) over their rating</b> (red)")
+            if n_risk:
+                bits.append(f"<b style='color:{VERDICT_TEXT['at-risk']}'>{n_risk} at risk</b> "
+                            "(rating within the error band, amber)")
+            self.summary.setText("; ".join(bits) + ".")
         else:
-            self.summary.setText("No rated part exceeded its rating during the run.")
+            self.summary.setText("No rated part reached its rating during the run.")
         self.export_button.setEnabled(bool(rows))
         self.copy_button.setEnabled(bool(rows))
 
     def shown_rows(self) -> list[list[str]]:
-        """Rows in the order shown (after sorting), with the CSV status words."""
-        out = []
-        for r in range(self.table.rowCount()):
-            row = [self.table.item(r, c).text() for c in range(self.table.columnCount())]
-            row[STATUS_COL] = row[STATUS_COL].lower()
-            out.append(row)
-        return out
+        """The peaks.csv rows in the order shown (after sorting)."""
+        return [list(self.table.item(r, 0).data(CSV_ROLE)) for r in range(self.table.rowCount())]
+
+    def shown_text(self) -> list[list[str]]:
+        """The cell texts as shown, row by row."""
+        return [[self.table.item(r, c).text() for c in range(self.table.columnCount())]
+                for r in range(self.table.rowCount())]
 
     def copy_to_clipboard(self) -> str:
         text = peaks_tsv(self.shown_rows())
         QGuiApplication.clipboard().setText(text)
         return text
 
-    def marked_parts(self) -> set[str]:
-        """Parts whose rows are marked as over their rating."""
-        return {row[0] for row in self.shown_rows() if row[STATUS_COL] == "over"}
+    def marked_parts(self, verdict: str = "over") -> set[str]:
+        """Parts whose rows carry ``verdict`` (over, at-risk, ok, unrated)."""
+        return {row[0] for row in self.shown_rows() if row[STATUS_COL] == verdict}
 
     def eventFilter(self, obj, event) -> bool:
         if obj is self.table and event.type() == QEvent.KeyPress and event.matches(QKeySequence.Copy):

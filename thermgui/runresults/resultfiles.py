@@ -49,8 +49,10 @@ class ResultFiles:
         finally:
             self.results_shown = shown
         self.view.set_geometry(store.points_mm, store.tets)
-        self.table.set_rows(store.peak_rows)
+        self.table.set_rows(store.peak_rows, store.duration_s)
+        self.fit_table()
         self.export_action.setEnabled(True)
+        self.report_action.setEnabled(True)
         self.status.started(f"Results of {Path(folder).name}", store.duration_s)
         self.status.finished(f"Opened {store.n_frames} outputs from {Path(folder).name} (not solved again)"
                              + cut_note)
@@ -89,10 +91,33 @@ class ResultFiles:
     def save_picture(self, path) -> None:
         self.view.save_picture(path)
 
+    def export_dir(self) -> Path:
+        """Where export dialogs start: the model's folder; for an unsaved model the folder that holds
+        the opened results (unless it is a temporary one), else the home folder."""
+        path = getattr(self.window.document, "path", None)
+        if path:
+            return Path(path).resolve().parent
+        folder = getattr(self.store, "folder", None)
+        if folder is not None and not _in_temp(folder):
+            return Path(folder).resolve().parent
+        return Path.home()
+
+    def _ask_path(self, title: str, name: str, filter_text: str, suffix: str) -> str:
+        start = str(self.export_dir() / name)
+        prompts = getattr(self.window, "prompts", None)
+        if prompts is not None and hasattr(prompts, "file_path"):
+            return prompts.file_path(title, start, filter_text, suffix)
+        path, _ = QFileDialog.getSaveFileName(self.window, title, start, filter_text)
+        return path
+
+    def _stem(self) -> str:
+        path = getattr(self.window.document, "path", None)
+        return Path(path).stem if path else "untitled"
+
     def _ask_export(self) -> None:
         if self.store is None or self.store.peak_rows is None:
             return
-        path, _ = QFileDialog.getSaveFileName(self.window, "Export peak table", "peaks.csv", "CSV files (*.csv)")
+        path = self._ask_path("Export peak table", f"{self._stem()}-peaks.csv", "CSV files (*.csv)", ".csv")
         if path:
             try:
                 self.export_peaks(path)
@@ -100,8 +125,34 @@ class ResultFiles:
             except OSError as e:
                 self.status.show_error("The peak table could not be written.", f"{path}: {e.strerror or e}")
 
+    def export_report(self, path) -> Path:
+        """Write the design-review report of the shown results (see thermgui.report)."""
+        from ..report import write_report
+
+        return write_report(self.store.folder, path)
+
+    def _ask_report(self) -> None:
+        if self.store is None or not self.store.complete or self.store.folder is None:
+            self._status_bar("Finish a run (or open a finished results folder) to make a report.")
+            return
+        path = self._ask_path("Export design-review report", f"{self._stem()}-report.html",
+                              "HTML files (*.html)", ".html")
+        if not path:
+            return
+        from ..report import ReportError
+
+        try:
+            out = self.export_report(path)
+        except ReportError as e:
+            self.status.show_error("No report was written.", str(e))
+            return
+        except OSError as e:
+            self.status.show_error("The report could not be written.", f"{path}: {e.strerror or e}")
+            return
+        self._status_bar(f"Report written to {out}")
+
     def _ask_picture(self) -> None:
-        path, _ = QFileDialog.getSaveFileName(self.window, "Save view as picture", "view.png", "PNG images (*.png)")
+        path = self._ask_path("Save view as picture", f"{self._stem()}-view.png", "PNG images (*.png)", ".png")
         if path:
             try:
                 self.save_picture(path)
@@ -113,6 +164,15 @@ class ResultFiles:
         folder = QFileDialog.getExistingDirectory(self.window, "Open results folder")
         if folder:
             self.open_results(folder)
+
+
+def _in_temp(folder) -> bool:
+    import tempfile
+
+    try:
+        return Path(tempfile.gettempdir()).resolve() in Path(folder).resolve().parents
+    except OSError:
+        return False
 
 
 def check_results_folder(folder: Path) -> None:

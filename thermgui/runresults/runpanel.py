@@ -7,9 +7,8 @@ from PySide6.QtWidgets import QHBoxLayout, QLabel, QProgressBar, QSizePolicy, QV
 
 from .timefmt import format_duration, format_time
 
-CAUTION_TEXT = ("Engineering estimates from a conduction model with assumed convection coefficients: confirm "
-                "them by measurement on real hardware, and defer to the applicable safety standards, codes and "
-                "licensed practice before relying on them.")
+CAUTION_TEXT = ("Engineering estimates (conduction model, assumed convection): confirm by measurement on real "
+                "hardware; defer to the applicable safety standards, codes and licensed practice.")
 ERROR_STYLE = ("QLabel { background: #fdecee; color: #7a0c1f; border: 1px solid #d0103a; border-radius: 3px;"
                " padding: 4px; }")
 CAUTION_STYLE = ("QLabel { background: #fff6dc; color: #4a3b00; border: 1px solid #e0b000; border-radius: 3px;"
@@ -51,7 +50,7 @@ class RunStatus(QWidget):
         self.bar.setTextVisible(True)
         # room for the longest progress text; the line beside it gives way (its tooltip keeps it all)
         self.bar.setMinimumWidth(self.bar.fontMetrics().horizontalAdvance(
-            "100 % · t = 59.9 min · about 59 min left") + 30)
+            "100 % · about 59 min 59 s left") + 30)
         self.detail = ElidingLabel("Press Run (F5) to solve the model.")
         self.message = QLabel()
         self.message.setWordWrap(True)
@@ -61,7 +60,9 @@ class RunStatus(QWidget):
         self.caution = QLabel("⚠ " + CAUTION_TEXT)
         self.caution.setWordWrap(True)
         self.caution.setStyleSheet(CAUTION_STYLE)
-        self.caution.setMinimumHeight(2 * self.caution.fontMetrics().lineSpacing() + 10)
+        self.caution.setToolTip("Results are engineering estimates from a conduction model with assumed convection "
+                                "coefficients. Confirm them by measurement on real hardware, and defer to the "
+                                "applicable safety standards, codes and licensed practice before relying on them.")
         top = QHBoxLayout()
         top.addWidget(self.bar, 1)
         top.addWidget(self.detail, 2)
@@ -96,11 +97,11 @@ class RunStatus(QWidget):
         self.bar.setRange(0, 1000)
         self.bar.setValue(int(1000 * step / max(1, n_steps)))
         left = remaining_seconds(step, n_steps, elapsed_s)
-        text = f"%p % · t = {format_time(time_s)}"
+        text = "%p %"  # the model time shows once, with the drawn field (view caption and slider)
         if left is not None:
             text += f" · about {format_duration(left)} left"
         self.bar.setFormat(text)
-        self.bar.setToolTip(f"step {step:,} of {n_steps:,}")
+        self.bar.setToolTip(f"step {step:,} of {n_steps:,}, computing t = {format_time(time_s, self._span or None)}")
 
     def finished(self, text: str) -> None:
         self.bar.setRange(0, 1000)

@@ -142,6 +142,30 @@ class ResultsStore:
             over = pm > self.rated_c
         return {n for n, o in zip(self.part_names, over) if o}
 
+    def error_k(self, name: str) -> float:
+        """The estimated error of a part's peak from the peak table (K; 0 when not estimated)."""
+        k = PEAK_COLUMNS.index("peak_error_k")
+        for r in self.peak_rows or []:
+            if r[0] == name:
+                try:
+                    v = float(r[k])
+                except (ValueError, IndexError):
+                    return 0.0
+                return v if np.isfinite(v) and v > 0 else 0.0
+        return 0.0
+
+    def verdicts_at(self, i: int) -> tuple[set, set]:
+        """(over, at risk) at output ``i`` with the peak table's error band: over when the part's
+        maximum minus its error exceeds the rating, at risk when the rating lies within ± error."""
+        if not self.part_max:
+            return set(), set()
+        pm = self.part_max[i]
+        err = np.array([self.error_k(n) for n in self.part_names]) if self.peak_rows else np.zeros(len(pm))
+        with np.errstate(invalid="ignore"):
+            over = pm - err > self.rated_c
+            risk = ~over & (err > 0) & (pm + err >= self.rated_c)
+        return ({n for n, o in zip(self.part_names, over) if o}, {n for n, o in zip(self.part_names, risk) if o})
+
     def ever_over(self) -> set:
         """Parts that exceeded their rating at some time (peak table once finished, else outputs)."""
         if self.peak_rows is not None:

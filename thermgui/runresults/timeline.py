@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 from PySide6.QtCore import Qt, QTimer, Signal
+from PySide6.QtGui import QKeySequence, QShortcut
 from PySide6.QtWidgets import QHBoxLayout, QLabel, QSlider, QStyle, QToolButton, QWidget
 
 from .timefmt import format_time
@@ -15,12 +16,14 @@ class TimelineBar(QWidget):
     def __init__(self, parent=None, frame_interval_ms: int = 250):
         super().__init__(parent)
         self._times: list[float] = []
+        self._override: str | None = None  # a live frame's time shown instead of the slider's
         self._span = 0.0
         st = self.style()
-        self.back_button = self._button(st.standardIcon(QStyle.SP_MediaSkipBackward), "One output back (,)")
+        # single arrows for single steps (the "skip to start / end" icons promised a jump)
+        self.back_button = self._button(st.standardIcon(QStyle.SP_ArrowLeft), "One output back (,)")
         self.play_button = self._button(st.standardIcon(QStyle.SP_MediaPlay), "Play / pause (Space)")
         self.play_button.setCheckable(True)
-        self.forward_button = self._button(st.standardIcon(QStyle.SP_MediaSkipForward), "One output forward (.)")
+        self.forward_button = self._button(st.standardIcon(QStyle.SP_ArrowRight), "One output forward (.)")
         self.back_button.setShortcut(Qt.Key_Comma)
         self.forward_button.setShortcut(Qt.Key_Period)
         self.slider = QSlider(Qt.Horizontal)
@@ -42,6 +45,10 @@ class TimelineBar(QWidget):
         self.back_button.clicked.connect(lambda: self.step(-1))
         self.forward_button.clicked.connect(lambda: self.step(1))
         self.play_button.toggled.connect(self.set_playing)
+        # Space plays / pauses anywhere in the window while there are results (a text field that
+        # has the focus still takes its spaces: it claims the key first)
+        self.space = QShortcut(QKeySequence(Qt.Key_Space), self, context=Qt.WindowShortcut)
+        self.space.activated.connect(lambda: self.set_playing(not self.timer.isActive()))
         self.setEnabled(False)
 
     def _button(self, icon, tip):
@@ -81,15 +88,23 @@ class TimelineBar(QWidget):
         self.set_index(self.slider.value() + delta)
 
     def _on_value(self, i: int) -> None:
+        self._override = None  # the user moved the slider: its time is the one shown
         self._update_label()
         self.indexChanged.emit(i)
+
+    def show_time_text(self, text: str | None) -> None:
+        """Show ``text`` (e.g. the time of a live frame beyond the last output) instead of the
+        slider's time; None goes back to the slider's time."""
+        self._override = text
+        self._update_label()
 
     def _update_label(self) -> None:
         if not self._times:
             self.label.setText("no results yet")
             return
         i = self.slider.value()
-        self.label.setText(f"t = {format_time(self._times[i], self._span)}  of {format_time(self._span, self._span)}")
+        shown = self._override or f"t = {format_time(self._times[i], self._span)}"
+        self.label.setText(f"{shown}  of {format_time(self._span, self._span)}")
 
     # ------------------------------------------------------------ playback
     def set_playing(self, on: bool) -> None:
