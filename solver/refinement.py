@@ -134,9 +134,12 @@ def influence_fields(problem, hot_nodes, tau_s: float, method: str = "direct") -
     a = (problem.stiffness + sp.diags(problem.lumped / float(tau_s))).tocsr()
     rhs = np.zeros((problem.n_nodes, len(hot_nodes)))
     rhs[np.asarray(hot_nodes, dtype=np.int64), np.arange(len(hot_nodes))] = 1.0
-    solver = make_solver(a, method if method != "multigrid" else "multigrid")
+    solver = make_solver(a, method)
     try:
-        z = solver.solve(rhs)
+        if getattr(solver, "iterative", False):  # Krylov solvers take one right-hand side at a time
+            z = np.column_stack([solver.solve(rhs[:, j]) for j in range(rhs.shape[1])])
+        else:
+            z = solver.solve(rhs)
     finally:
         solver.close()
     return np.asarray(z).reshape(problem.n_nodes, len(hot_nodes))

@@ -18,6 +18,7 @@ import json
 import math
 
 import numpy as np
+import scipy.sparse as sp
 import pytest
 
 from modelkit import model_dict, part
@@ -196,3 +197,22 @@ def test_fixed_steps_add_a_time_error():
     assert t_err > 0.05
     assert abs(row.peak_c - exact) <= row.peak_error_k
     assert math.isfinite(row.peak_error_k)
+
+
+@pytest.mark.parametrize("method", ["direct", "multigrid"])
+def test_influence_fields_with_each_solver(method):
+    """One influence field per hot node, the same from a direct and an iterative solver
+    (several right-hand sides at once)."""
+    from solver.refinement import influence_fields
+
+    d = heated_box(2.0, None)
+    model = solver.parse_model(d)
+    problem = solver.build_problem(model)
+    hot = [0, problem.n_nodes // 2, problem.n_nodes - 1]
+    z = influence_fields(problem, hot, 60.0, method)
+    assert z.shape == (problem.n_nodes, 3)
+    a = problem.stiffness + sp.diags(problem.lumped / 60.0)
+    for j, node in enumerate(hot):
+        e = np.zeros(problem.n_nodes)
+        e[node] = 1.0
+        assert np.linalg.norm(a @ z[:, j] - e) <= 1e-6 * np.linalg.norm(e)
