@@ -3,6 +3,8 @@
     thermgui                      open the app on the bundled default sample
     thermgui open FILE            open a model (or a results folder) in the app
     thermgui solve MODEL --out D  run headless and write results to D
+    thermgui zth MODEL --out D    thermal impedance curves and RC networks (solver.answers_cli)
+    thermgui whatif MODEL --out D scaled loads / shifted ambient by superposition
 """
 from __future__ import annotations
 
@@ -12,6 +14,7 @@ import sys
 from pathlib import Path
 
 from solver import __version__
+from solver import answers_cli
 from solver.cli import add_solve_arguments, solve_to_folder
 
 SAMPLES_DIR = Path(__file__).resolve().parent.parent / "samples"
@@ -31,13 +34,16 @@ def build_parser() -> argparse.ArgumentParser:
     p_open.add_argument("path", help="model file (.json) or results folder")
     p_solve = sub.add_parser("solve", help="solve a model headless and write peaks.csv, history.csv and the field")
     add_solve_arguments(p_solve)
+    answers_cli.add_commands(sub)
     return parser
 
 
 def main(argv=None) -> int:
     args = build_parser().parse_args(argv)
-    if args.command == "solve":
+    if args.command == "solve" or args.command in answers_cli.COMMANDS:
         try:
+            if args.command != "solve":
+                return answers_cli.run_command(args)
             return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver, method=args.method,
                                    tolerance_k=args.tolerance)
         except KeyboardInterrupt:
