@@ -105,6 +105,8 @@ def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str
         record = session.accuracy_record()
         if record:
             stream.write(format_record(record) + "\n")
+        if getattr(session, "cycle", None) is not None:
+            stream.write(session.cycle.describe() + "\n")
         if session.stepper.reduced_info is not None and session.stepper.method == "reduced":
             stream.write(session.stepper.reduced_info.describe() + "\n")
         stream.write(f"energy balance: largest step residual {session.recorder.relative_energy_residual:.1e} of "
