@@ -1,5 +1,5 @@
-"""Headless commands that answer from unit responses: ``zth`` (thermal impedance and RC networks)
-and ``whatif`` (scaled loads and shifted ambients by superposition).
+"""Headless commands that answer from unit responses: ``zth`` (thermal impedance and RC networks),
+``whatif`` (scaled loads and shifted ambients by superposition) and ``sweep`` (cases on Dask).
 
 Exit status 0 on success, 2 for invalid input (nothing is written), 1 for anything else.
 """
@@ -39,7 +39,16 @@ def add_commands(sub) -> None:
     w.add_argument("--linear-solver", default="auto", choices=["auto", "direct", "multigrid"])
 
 
-COMMANDS = ("zth", "whatif")
+    s = sub.add_parser("sweep", help="run the cases of a sweep file on Dask (LocalCluster, or --scheduler)")
+    s.add_argument("sweep", help="sweep file (JSON, format thermgui-sweep version 1)")
+    s.add_argument("--out", required=True, help="folder for cases.csv, worst.csv and margin.png")
+    s.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="address of a running Dask scheduler (default: a LocalCluster on this machine)")
+    s.add_argument("--workers", type=int, default=None, help="LocalCluster worker processes (default: up to 4)")
+    s.add_argument("--quiet", action="store_true")
+
+
+COMMANDS = ("zth", "whatif", "sweep")
 
 
 def run_command(args, stream=None, err=None) -> int:
@@ -48,6 +57,11 @@ def run_command(args, stream=None, err=None) -> int:
     if args.command == "zth":
         return zth_to_folder(args.model, args.out, parts=args.part, stages=args.stages, quiet=args.quiet,
                              linear_solver=args.linear_solver, stream=stream, err=err)
+    if args.command == "sweep":
+        from .sweep import sweep_to_folder
+
+        return sweep_to_folder(args.sweep, args.out, scheduler=args.scheduler, workers=args.workers,
+                               quiet=args.quiet, stream=stream, err=err)
     from .whatif import whatif_to_folder
 
     return whatif_to_folder(args.model, args.out, args.scale, args.ambient_offset, quiet=args.quiet,

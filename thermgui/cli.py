@@ -5,6 +5,7 @@
     thermgui solve MODEL --out D  run headless and write results to D
     thermgui zth MODEL --out D    thermal impedance curves and RC networks (solver.answers_cli)
     thermgui whatif MODEL --out D scaled loads / shifted ambient by superposition
+    thermgui sweep SWEEP --out D  sweep cases on Dask (LocalCluster or --scheduler ADDRESS)
 """
 from __future__ import annotations
 
@@ -52,7 +53,7 @@ def main(argv=None) -> int:
         except Exception as e:  # anything unexpected: a message, not a traceback (set THERMGUI_DEBUG=1 for one)
             if os.environ.get("THERMGUI_DEBUG"):
                 raise
-            sys.stderr.write(f"{args.model}: internal error: {type(e).__name__}: {e}\n"
+            sys.stderr.write(f"{getattr(args, 'model', getattr(args, 'sweep', ''))}: internal error: {type(e).__name__}: {e}\n"
                              "(set THERMGUI_DEBUG=1 to see the traceback)\n")
             return 1
     path = Path(args.path) if args.command == "open" else default_sample()
