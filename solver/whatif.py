@@ -13,9 +13,8 @@ what-if's scale factors and ambient offset. The basis grows (blocks of one facto
 two successive bases agree within 0.01 K on every part's maximum of every component at every
 sample, and on every node at a spread of samples.
 
-Peaks, first crossings and history are then evaluated as in a reduced run (each part's hottest
-candidate nodes at every sample, full fields at output times and peaks) and written as
-``peaks.csv`` and ``history.csv``. Radiation (emissivity) makes the model nonlinear; it is refused.
+Peaks, first crossings and history are then evaluated on candidate nodes (:func:`evaluate`) and
+written as ``peaks.csv`` and ``history.csv``. Radiation (emissivity) makes the model nonlinear; it is refused.
 """
 from __future__ import annotations
 
@@ -180,25 +179,33 @@ class _Event:
 
 
 def evaluate(problem, ur: UnitResponses, scales, ambient_offset: float = 0.0):
-    """RunRecorder of the what-if case (peaks, first crossings, history at output times)."""
+    """RunRecorder of the what-if case: peaks, first crossings and history at output times.
+
+    Only candidate nodes are evaluated at every sample: each part's hottest node at every output
+    time and at 60 spread samples (found exactly over all nodes there), plus the probes' nodes.
+    The part maxima at output times are therefore exact for the basis; between them they are the
+    maxima over the candidates (as in a reduced run). Part means are not evaluated (NaN)."""
     from .results import RunRecorder
 
     q = ur.coordinates(scales, ambient_offset)
     v = ur.v
-    grid = type("G", (), {"is_output": ur.is_output})()
+    n_s = len(ur.times)
     coarse = np.unique(np.concatenate([np.flatnonzero(ur.is_output),
-                                       np.linspace(0, len(ur.times) - 1, min(len(ur.times), 60)).round().astype(int)]))
-    nodes = hottest_nodes(problem, v, q, coarse)
-    cand = candidate_part_maxima(problem, v[nodes] @ q, nodes)
+                                       np.linspace(0, n_s - 1, min(n_s, 60)).round().astype(int)]))
+    nodes = np.union1d(hottest_nodes(problem, v, q, coarse), np.unique(problem.probes.indices))
+    vals = v[nodes] @ q  # (candidates, samples)
+    cand = candidate_part_maxima(problem, vals, nodes)
+    grid = type("Samples", (), {"is_output": ur.is_output})()
     chosen = event_indices(problem, grid, cand)
     rec = RunRecorder(problem, keep_fields=False)
-    shares = problem.heat_shares
+    field = np.full(problem.n_nodes, -np.inf)
+    no_mean = np.full(len(problem.model.parts), np.nan)
     prev_t = 0.0
     for k, i in enumerate(chosen):
-        d = v @ q[:, i]
+        field[nodes] = vals[:, i]
         t = float(ur.times[i])
-        rec.add(_Event(k, len(chosen) - 1, t, t - prev_t, d, problem.part_nodes.maxima(d), shares @ d,
-                       problem.probes @ d, bool(ur.is_output[i])))
+        rec.add(_Event(k, len(chosen) - 1, t, t - prev_t, field, cand[i].copy(), no_mean,
+                       problem.probes @ field if problem.probes.shape[0] else np.zeros(0), bool(ur.is_output[i])))
         prev_t = t
     return rec
 
