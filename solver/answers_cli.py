@@ -24,6 +24,9 @@ def add_commands(sub) -> None:
     p.add_argument("--part", action="append", default=None,
                    help="part to report (repeatable; default: every rated part, else every heated part)")
     p.add_argument("--stages", type=int, default=None, help="Foster stages per curve (1-12; default automatic)")
+    p.add_argument("--passive", action="store_true",
+                   help="non-negative Foster stages only (a passive network, with a Cauer ladder for self "
+                        "terms), even where the fit error exceeds 1 %%")
     p.add_argument("--quiet", action="store_true", help="no progress or summary")
     p.add_argument("--linear-solver", default="auto", choices=["auto", "direct", "multigrid"])
     w = sub.add_parser("whatif", help="scaled heat loads / shifted ambient by superposition of unit responses")
@@ -56,7 +59,7 @@ def run_command(args, stream=None, err=None) -> int:
     err = err if err is not None else sys.stderr
     if args.command == "zth":
         return zth_to_folder(args.model, args.out, parts=args.part, stages=args.stages, quiet=args.quiet,
-                             linear_solver=args.linear_solver, stream=stream, err=err)
+                             linear_solver=args.linear_solver, stream=stream, err=err, passive=args.passive)
     if args.command == "sweep":
         from .sweep import sweep_to_folder
 
@@ -69,7 +72,7 @@ def run_command(args, stream=None, err=None) -> int:
 
 
 def zth_to_folder(model_path, out_dir, parts=None, stages=None, quiet=False, linear_solver="auto",
-                  stream=None, err=None) -> int:
+                  stream=None, err=None, passive: bool = False) -> int:
     from .foster import MAX_STAGES, fit_foster, foster_to_cauer
     from .model import load_model
     from .problem import build_problem
@@ -98,7 +101,7 @@ def zth_to_folder(model_path, out_dir, parts=None, stages=None, quiet=False, lin
         say(f"warning: {w}")
     fits, cauers = {}, {}
     for a, j, part, heated in result.pairs():
-        fit = fit_foster(result.times, result.zth[a, j], stages=stages)
+        fit = fit_foster(result.times, result.zth[a, j], stages=stages, passive=passive)
         fits[(a, j)] = fit
         cauers[(a, j)] = None
         if part == heated and not fit.signed:

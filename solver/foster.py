@@ -162,10 +162,11 @@ def _fit_n(t, z, w, n, signed, r_dense, dense) -> FosterFit:
     return best
 
 
-def fit_foster(t, z, stages: int | None = None, target: float = AUTO_TARGET) -> FosterFit:
+def fit_foster(t, z, stages: int | None = None, target: float = AUTO_TARGET, passive: bool = False) -> FosterFit:
     """Fit a Foster ladder to a step response z(t) (K/W) at times t (s, increasing, t > 0).
     ``stages`` None: automatic (see module doc). Non-negative stages are tried first; when they
-    cannot meet ``target`` (``stages`` given: 1 %), signed stages are fitted (see module doc)."""
+    cannot meet ``target`` (``stages`` given: 1 %), signed stages are fitted (see module doc),
+    unless ``passive``: then the best non-negative fit is returned whatever its error."""
     t = np.asarray(t, dtype=float)
     z = np.asarray(z, dtype=float)
     if z[-1] <= 0:
@@ -178,7 +179,11 @@ def fit_foster(t, z, stages: int | None = None, target: float = AUTO_TARGET) -> 
     # the dense non-negative fit is (nearly) the best any non-negative ladder can do: skip the
     # non-negative search when even it misses the promise
     best = {}
-    for signed in ((False, True) if _fit_error_nnls(t, z, w, r_dense, dense) <= ACCEPT else (True,)):
+    if passive:
+        kinds = (False,)
+    else:
+        kinds = (False, True) if _fit_error_nnls(t, z, w, r_dense, dense) <= ACCEPT else (True,)
+    for signed in kinds:
         for n in ns:
             fit = _fit_n(t, z, w, n, signed, r_dense, dense)
             fit.signed = signed
@@ -186,7 +191,7 @@ def fit_foster(t, z, stages: int | None = None, target: float = AUTO_TARGET) -> 
                 return fit
             if signed not in best or fit.error < best[signed].error:
                 best[signed] = fit
-        if not signed and best[False].error <= ACCEPT:
+        if not signed and (best[False].error <= ACCEPT or passive):
             return best[False]  # a passive ladder within the promise beats a closer signed one
     return min(best.values(), key=lambda f: f.error)
 

@@ -218,3 +218,20 @@ def test_cli_bad_input_exit_2(tmp_path, capsys):
     assert zth_to_folder(path, tmp_path / "c", quiet=True) == 2
     assert "convection" in capsys.readouterr().err
     assert not (tmp_path / "a").exists() and not (tmp_path / "c").exists()
+
+
+def test_passive_option_gives_non_negative_ladders_and_cauer(tmp_path):
+    """--passive: every stage non-negative, and every self term gets a Cauer ladder with the
+    same DC resistance (Σ R, the steady value's fit)."""
+    path = tmp_path / "model.json"
+    path.write_text(json.dumps(two_chips()))
+    out = tmp_path / "zth"
+    assert zth_to_folder(path, out, quiet=True, passive=True) == 0
+    doc = json.loads((out / "zth.json").read_text())
+    for p in doc["pairs"]:
+        assert not p["foster"]["signed"] and min(p["foster"]["r_k_w"]) > 0 and min(p["foster"]["c_j_k"]) > 0
+        if p["part"] == p["heated_part"]:
+            assert p["cauer"] is not None
+            assert sum(p["cauer"]["r_k_w"]) == pytest.approx(sum(p["foster"]["r_k_w"]), rel=1e-9)
+        else:
+            assert p["cauer"] is None
