@@ -92,46 +92,65 @@ def _coords(modal: ModalSystem, grid: SampleGrid, c0, c1, z0=None) -> np.ndarray
     return modal.coordinates(z)
 
 
+def _components(problem, modal: ModalSystem, grid: SampleGrid, v: np.ndarray, n_heat: int):
+    """Coordinates (r, S) of every component: initial field, each heat load, ambients, unit shift."""
+    q_init = _coords(modal, grid, 0 * grid.c0, 0 * grid.c1,
+                     modal.phi.T @ (v.T @ mass_times(problem, problem.initial.astype(float))))
+    q_loads = []
+    for j in range(n_heat):
+        m0, m1 = np.zeros_like(grid.c0), np.zeros_like(grid.c1)
+        m0[:, j], m1[:, j] = grid.c0[:, j], grid.c1[:, j]
+        q_loads.append(_coords(modal, grid, m0, m1))
+    a0, a1 = grid.c0.copy(), grid.c1.copy()
+    a0[:, :n_heat] = 0.0
+    a1[:, :n_heat] = 0.0
+    q_amb = _coords(modal, grid, a0, a1)
+    u0 = np.zeros_like(grid.c0)
+    u0[:, n_heat:] = 1.0
+    q_shift = _coords(modal, grid, u0, u0)
+    return UnitResponses(v, q_init, np.array(q_loads).reshape(n_heat, v.shape[1], -1), q_amb, q_shift,
+                         grid.times, grid.is_output)
+
+
 def compute_unit_responses(problem, method: str = "pardiso", tol_k: float = TOL_K, progress=None) -> UnitResponses:
-    """Grow a basis from the model's load patterns and integrate every component (module doc)."""
+    """Grow a basis from the model's load patterns and integrate every component (module doc).
+
+    Each check compares two successive bases on every component at every sample on watched
+    nodes (each component's hottest nodes, found over all nodes at the outputs and 60 spread
+    samples); once within ``tol_k`` the watched nodes are found again on the new basis and the
+    comparison is confirmed on every node at those samples."""
+    from .reduced import ProjectedRun
+
     require_linear(problem.model)
     run = problem.model.run
     grid = SampleGrid(problem)
     n_heat = len(problem.heat_profiles)
+    n_s = len(grid.times)
+    coarse = np.unique(np.concatenate([np.flatnonzero(grid.is_output),
+                                       np.linspace(0, n_s - 1, min(n_s, 60)).round().astype(int)]))
     shift = 1.0 / math.sqrt(float(run.step_s) * float(run.duration_s))
     basis = KrylovBasis(problem, shift, method=method, max_columns=int(min(256, 1.5e9 // (8 * problem.n_nodes))))
-    load_b = problem._load_basis()
-    coarse = grid.coarse_index()
-    prev = None
-    out = None
+    proj = ProjectedRun(problem, basis, grid)
+    prev, out, watched = None, None, None
     try:
         for block in range(1, MAX_BLOCKS + 1):
             added = basis.grow()
+            if added:
+                proj.update()
             if block < MIN_BLOCKS and added:
                 continue
-            v = basis.V
-            kr = v.T @ (problem.stiffness @ v)
-            modal = ModalSystem(kr, (load_b.T @ v).T, np.zeros(v.shape[1]))
-            q_init = _coords(modal, grid, 0 * grid.c0, 0 * grid.c1, modal.phi.T @ (v.T @ mass_times(
-                problem, problem.initial.astype(float))))
-            q_loads = []
-            for j in range(n_heat):
-                m0, m1 = np.zeros_like(grid.c0), np.zeros_like(grid.c1)
-                m0[:, j], m1[:, j] = grid.c0[:, j], grid.c1[:, j]
-                q_loads.append(_coords(modal, grid, m0, m1))
-            a0, a1 = grid.c0.copy(), grid.c1.copy()
-            a0[:, :n_heat] = 0.0
-            a1[:, :n_heat] = 0.0
-            q_amb = _coords(modal, grid, a0, a1)
-            u0 = np.zeros_like(grid.c0)
-            u0[:, n_heat:] = 1.0
-            q_shift = _coords(modal, grid, u0, u0)
-            cur = UnitResponses(v.copy(), q_init, np.array(q_loads).reshape(n_heat, v.shape[1], -1), q_amb, q_shift,
-                                grid.times, grid.is_output)
+            r = basis.size
+            modal = ModalSystem(proj._kr[:r, :r], proj._br[:r], np.zeros(r))
+            cur = _components(problem, modal, grid, basis.V, n_heat)
+            if watched is None:
+                watched = _watch(problem, cur, coarse)
             if prev is not None:
-                cur.change_k = _change(problem, prev, cur, coarse)
+                cur.change_k = _change(cur, prev, watched)
+                if cur.change_k <= tol_k:  # confirm: fresh watched nodes, and every node at the coarse samples
+                    watched = _watch(problem, cur, coarse)
+                    cur.change_k = max(_change(cur, prev, watched), _change(cur, prev, None, coarse))
                 if progress is not None:
-                    progress(f"basis {v.shape[1]} vectors: change {cur.change_k:.2g} K")
+                    progress(f"basis {r} vectors: change {cur.change_k:.2g} K")
             out = cur
             if (prev is not None and cur.change_k <= tol_k) or added == 0 or basis.full:
                 break
@@ -141,22 +160,33 @@ def compute_unit_responses(problem, method: str = "pardiso", tol_k: float = TOL_
     if not (out.change_k <= tol_k):
         problem.warnings.append(f"the unit responses changed by {out.change_k:.2g} K in the last basis block "
                                 f"(target {tol_k:g} K)")
+    out.v = out.v.copy()
     return out
 
 
-def _change(problem, small: UnitResponses, big: UnitResponses, coarse) -> float:
-    """Largest difference of any component between two bases: at each part's hottest nodes at every
-    sample and at every node at the coarse samples, K."""
+def _each(ur: UnitResponses):
+    yield ur.q_init
+    yield ur.q_amb
+    yield ur.q_shift
+    yield from ur.q_loads
+
+
+def _watch(problem, ur: UnitResponses, coarse) -> np.ndarray:
+    return np.unique(np.concatenate([hottest_nodes(problem, ur.v, q, coarse) for q in _each(ur)]))
+
+
+def _change(big: UnitResponses, small: UnitResponses, nodes, coarse=None) -> float:
+    """Largest difference of any component between two bases, K: on ``nodes`` at every sample, or
+    (``nodes`` None) on every node at the ``coarse`` samples."""
     r_s = small.v.shape[1]
     worst = 0.0
-    comps = [(small.q_init, big.q_init), (small.q_amb, big.q_amb), (small.q_shift, big.q_shift)]
-    comps += list(zip(small.q_loads, big.q_loads))
-    for qs, qb in comps:
+    for qb, qs in zip(_each(big), _each(small)):
         dq = qb.copy()
         dq[:r_s] -= qs
-        nodes = hottest_nodes(problem, big.v, qb, coarse)
-        worst = max(worst, float(np.abs(big.v[nodes] @ dq).max()) if len(nodes) else 0.0,
-                    float(np.abs(big.v @ dq[:, coarse]).max()))
+        if nodes is not None:
+            worst = max(worst, float(np.abs(big.v[nodes] @ dq).max()) if len(nodes) else 0.0)
+        else:
+            worst = max(worst, float(np.abs(big.v @ dq[:, coarse]).max()))
     return worst
 
 
