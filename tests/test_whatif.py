@@ -86,3 +86,20 @@ def test_whatif_bad_scale_exit_2(tmp_path, capsys):
     assert "--scale" in capsys.readouterr().err
     assert whatif_to_folder(path, tmp_path / "o", ["chip=abc"], 0.0, quiet=True) == 2
     assert not (tmp_path / "o").exists()
+
+
+def test_superposition_refused_with_radiation():
+    """A convection entry with an emissivity (radiation, once the model has that key) makes the
+    model nonlinear: refused, naming the field."""
+    from types import SimpleNamespace
+
+    import pytest
+
+    from solver.errors import ModelError
+    from solver.unitresponse import require_linear
+
+    model = SimpleNamespace(convection=[SimpleNamespace(emissivity=None), SimpleNamespace(emissivity=0.9)])
+    with pytest.raises(ModelError) as e:
+        require_linear(model)
+    assert e.value.first_path == "convection[1].emissivity"
+    require_linear(SimpleNamespace(convection=[SimpleNamespace(emissivity=0.0)]))  # no radiation: fine
