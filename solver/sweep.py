@@ -12,8 +12,10 @@ Sweep file (JSON, our own format)::
      ]}
 
 Every combination of the variables' values is a case (full factorial; two values per variable
-gives the corners). ``heat_loads[i].scale`` and ``ambient_offset_k`` are superposed from unit
-responses (:mod:`solver.whatif`); cases that differ only in them share one solve. Any other field
+gives the corners). ``heat_loads[i].scale``, ``ambient_offset_k``, and the watts of a constant or
+step load or the model's ``ambient_c`` where they amount to a scale or an offset
+(:func:`superposed_form`), are superposed from unit responses (:mod:`solver.whatif`); cases that
+differ only in them share one solve. Any other field
 is written into the model, and each distinct set of such values is one task (one solve and its
 unit responses) on the Dask scheduler: a ``LocalCluster`` by default, or an existing scheduler
 with ``--scheduler ADDRESS``. The scheduler reruns a task whose worker dies. Nothing is written
@@ -172,16 +174,51 @@ def make_cases(variables):
     return [dict(zip(fields, combo)) for combo in itertools.product(*[v for _, v in variables])]
 
 
-def is_superposed(field: str) -> bool:
-    return field == AMBIENT_OFFSET or bool(SUPERPOSED_SCALE.match(field))
+_PROFILE_VALUE = re.compile(r"^heat_loads\[(\d+)\]\.profile\.value$")
 
 
-def group_cases(cases):
+def superposed_form(model_dict: dict, field: str, value: float):
+    """("scale", load index, factor) or ("offset", None, K) when the variation can be superposed
+    from unit responses, else None (the value is written into the model and solved).
+
+    Superposed: ``heat_loads[i].scale``; ``ambient_offset_k``; ``heat_loads[i].profile.value`` of a
+    constant or step load whose file value is not 0 (a factor value/file value); ``ambient_c`` when
+    no convection entry has its own ambient (an offset from the file's value)."""
+    m = SUPERPOSED_SCALE.match(field)
+    if m:
+        return ("scale", int(m.group(1)), float(value))
+    if field == AMBIENT_OFFSET:
+        return ("offset", None, float(value))
+    m = _PROFILE_VALUE.match(field)
+    if m:
+        prof = model_dict["heat_loads"][int(m.group(1))]["profile"]
+        base = prof.get("value")
+        if prof.get("type") in ("constant", "step") and isinstance(base, (int, float)) and base != 0:
+            return ("scale", int(m.group(1)), float(value) / float(base))
+    if field == "ambient_c" and all(c.get("ambient_c") is None for c in model_dict.get("convection", [])):
+        return ("offset", None, float(value) - float(model_dict.get("ambient_c", 25.0)))
+    return None
+
+
+def split_case(model_dict: dict, case: dict):
+    """(structural ((field, value), ...), superposed {"scales": {i: factor}, "offset": K})."""
+    structural, scales, offset = [], {}, 0.0
+    for field, value in case.items():
+        form = superposed_form(model_dict, field, value)
+        if form is None:
+            structural.append((field, value))
+        elif form[0] == "scale":
+            scales[form[1]] = scales.get(form[1], 1.0) * form[2]
+        else:
+            offset += form[2]
+    return tuple(structural), {"scales": scales, "offset": offset}
+
+
+def group_cases(cases, model_dict: dict):
     """[(structural values tuple, [case indices])] in first-appearance order."""
     groups: dict = {}
     for i, c in enumerate(cases):
-        key = tuple((f, v) for f, v in c.items() if not is_superposed(f))
-        groups.setdefault(key, []).append(i)
+        groups.setdefault(split_case(model_dict, c)[0], []).append(i)
     return list(groups.items())
 
 
@@ -203,14 +240,9 @@ def run_group(model_dict: dict, structural, combos, linear_solver: str = "auto")
     out = []
     for combo in combos:
         scales = np.ones(len(model.heat_loads))
-        offset = 0.0
-        for field, value in combo.items():
-            m = SUPERPOSED_SCALE.match(field)
-            if m:
-                scales[int(m.group(1))] = value
-            elif field == AMBIENT_OFFSET:
-                offset = value
-        rows = evaluate(problem, ur, scales, offset).peak_rows()
+        for i, factor in combo["scales"].items():
+            scales[i] = factor
+        rows = evaluate(problem, ur, scales, combo["offset"]).peak_rows()
         out.append(([{"part": r.part, "rated_c": r.rated_c, "peak_c": r.peak_c, "peak_time_s": r.peak_time_s,
                       "margin_k": r.margin_k, "status": r.status} for r in rows], float(ur.change_k)))
     return out
@@ -220,7 +252,7 @@ def _validate_structural(model_dict, cases, source):
     """Every distinct structural case must be a valid model: ModelError naming case and field."""
     from .model import parse_model
 
-    for key, idx in group_cases(cases):
+    for key, idx in group_cases(cases, model_dict):
         d = copy.deepcopy(model_dict)
         for field, value in key:
             _set(d, _split(field), value)
@@ -235,12 +267,13 @@ def run_sweep(model_dict, cases, client=None, progress=None, task=None):
     """Results per case [(rows, basis error)], computed on ``client`` (a dask.distributed Client) or
     serially in this process when ``client`` is None. ``task`` replaces :func:`run_group` (tests)."""
     task = task or run_group
-    groups = group_cases(cases)
+    groups = group_cases(cases, model_dict)
+    sup = [split_case(model_dict, c)[1] for c in cases]
     results = [None] * len(cases)
     done = 0
     if client is None:
         for key, idx in groups:
-            for i, res in zip(idx, task(model_dict, key, [_superposed(cases[i]) for i in idx])):
+            for i, res in zip(idx, task(model_dict, key, [sup[i] for i in idx])):
                 results[i] = res
             done += len(idx)
             if progress:
@@ -250,7 +283,7 @@ def run_sweep(model_dict, cases, client=None, progress=None, task=None):
 
     futures = {}
     for gi, (key, idx) in enumerate(groups):
-        fut = client.submit(task, model_dict, key, [_superposed(cases[i]) for i in idx], pure=False,
+        fut = client.submit(task, model_dict, key, [sup[i] for i in idx], pure=False,
                             key=f"sweep-group-{gi}-{os.getpid()}-{time.time_ns()}")
         futures[fut] = idx
     for fut in as_completed(list(futures)):
@@ -261,10 +294,6 @@ def run_sweep(model_dict, cases, client=None, progress=None, task=None):
         if progress:
             progress(done, len(cases))
     return results
-
-
-def _superposed(case):
-    return {f: v for f, v in case.items() if is_superposed(f)}
 
 
 def _num(v, fmt="{:.3f}"):
@@ -366,7 +395,7 @@ def sweep_to_folder(sweep_path, out_dir, scheduler=None, workers=None, quiet=Fal
     except ModelError as e:
         err.write(e.with_source(e.source or str(sweep_path)).describe() + "\n")
         return 2
-    groups = group_cases(cases)
+    groups = group_cases(cases, model_dict)
     say = (lambda m: None) if quiet else (lambda m: err.write(m + "\n"))
     say(f"{sweep_path}: {len(cases)} cases, {len(groups)} solve(s) (the rest superposed from unit responses)")
     client = cluster = None
@@ -383,6 +412,12 @@ def sweep_to_folder(sweep_path, out_dir, scheduler=None, workers=None, quiet=Fal
         bar.finish()
     except (SolveError, ModelError) as e:
         err.write(f"{sweep_path}: sweep stopped: {e}; nothing was written\n")
+        return 1
+    except Exception as e:  # e.g. distributed.KilledWorker: a task that killed every worker it was given
+        if type(e).__name__ != "KilledWorker":
+            raise
+        err.write(f"{sweep_path}: sweep stopped: a case's task killed each worker it ran on ({e}); "
+                  "nothing was written\n")
         return 1
     finally:
         if client is not None:

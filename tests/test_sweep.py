@@ -103,3 +103,27 @@ def test_unreachable_scheduler_exit_1_nothing_written(tmp_path, capsys):
     msg = capsys.readouterr().err
     assert "scheduler" in msg and "nothing was written" in msg
     assert not (tmp_path / "out").exists()
+
+
+def test_load_watts_and_ambient_superposed_from_one_solve(tmp_path):
+    """A constant load's watts and the model's ambient (no entry has its own) are a scale and an
+    offset: one solve serves every case, and a case equals a fresh solve (0.05 K)."""
+    from solver.sweep import group_cases
+
+    path = write_sweep(tmp_path, [{"field": "heat_loads[0].profile.value", "values": [1.0, 2.0]},
+                                  {"field": "ambient_c", "values": [20.0, 35.0]}])
+    model_dict, _, variables = read_sweep(path)
+    cases = make_cases(variables)
+    assert len(group_cases(cases, model_dict)) == 1
+    results = run_sweep(model_dict, cases, None)
+    d = json.loads((tmp_path / "m.json").read_text())
+    d["heat_loads"][0]["profile"]["value"] = 2.0
+    d["ambient_c"] = 35.0
+    assert cases[3] == {"heat_loads[0].profile.value": 2.0, "ambient_c": 35.0}
+    fresh = RunSession(solver.parse_model(d))
+    for _ in fresh.events():
+        pass
+    rows, _ = results[3]
+    for r in fresh.finish():
+        got = next(x for x in rows if x["part"] == r.part)
+        assert abs(got["peak_c"] - r.peak_c) < 0.05, (r.part, got["peak_c"], r.peak_c)
