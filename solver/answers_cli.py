@@ -5,7 +5,6 @@ Exit status 0 on success, 2 for invalid input (nothing is written), 1 for anythi
 """
 from __future__ import annotations
 
-import argparse
 import sys
 import time
 

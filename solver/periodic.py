@@ -22,7 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import ModelError, SolveError
-from .krylov import KrylovBasis, mass_times
+from .krylov import KrylovBasis
 from .modal import ModalSystem
 from .profiles import Constant, Pulse
 from .reduced import SampleGrid

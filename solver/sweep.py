@@ -51,7 +51,7 @@ _PATH_TOKEN = re.compile(r"([^.\[\]]+)|\[(\d+)\]")
 
 
 def _split(path: str):
-    out, pos = [], 0
+    out = []
     for m in _PATH_TOKEN.finditer(path):
         out.append(int(m.group(2)) if m.group(2) is not None else m.group(1))
     return out
