@@ -53,7 +53,7 @@ def test_whatif_equals_fresh_solve(tmp_path, capsys):
     assert whatif_to_folder(path, out, ["chip=1.3"], 5.0, quiet=True) == 0
     assert (out / "unit-responses.npz").exists()
     got = read_peaks(out / "peaks.csv")
-    fresh = RunSession(solver.parse_model(changed_model(d, 1.3, 5.0)))
+    fresh = RunSession(solver.parse_model(changed_model(d, 1.3, 5.0)), tolerance_k=False)
     for _ in fresh.events():
         pass
     rows = {r.part: r for r in fresh.finish()}
@@ -71,7 +71,7 @@ def test_whatif_equals_fresh_solve(tmp_path, capsys):
     capsys.readouterr()
     assert whatif_to_folder(path, out, [], 0.0) == 0
     assert "reusing stored unit responses" in capsys.readouterr().err
-    base = RunSession(solver.parse_model(d))
+    base = RunSession(solver.parse_model(d), tolerance_k=False)
     for _ in base.events():
         pass
     got = read_peaks(out / "peaks.csv")
