@@ -114,6 +114,8 @@ def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str
             stream.write(format_record(record) + "\n")
         st = session.stepper
         stream.write(f"method: {st.method} ({st.method_choice.reason})\n")
+        if getattr(session, "cycle", None) is not None:
+            stream.write(session.cycle.describe() + "\n")
         if st.reduced_info is not None and st.method == "reduced":
             stream.write(st.reduced_info.describe() + "\n")
         fw = session.written_files()

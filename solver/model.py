@@ -161,6 +161,9 @@ class RunSettings(_Strict):
     # its estimated error is below tolerance_k (default 0.1 K) and integrate exactly; step_s is then
     # the sampling interval for peaks.
     method: Optional[Literal["auto", "full", "reduced"]] = None
+    # true: report the settled cycle of loads and ambients that repeat with one period, computed
+    # directly (solver/periodic.py); the run then covers one period
+    periodic: bool = False
 
     @property
     def output_interval_s(self) -> float:

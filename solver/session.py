@@ -57,6 +57,11 @@ class RunSession:
                  linear_solver: str = "auto", keep_fields: bool | None = None, method: str | None = None,
                  tolerance_k="model", fields: str = "all"):
         self.t_start = time.perf_counter()
+        self.cycle = None  # periodic.CycleInfo of the level being solved, when run.periodic
+        self._period = None
+        if getattr(model.run, "periodic", False):
+            from .periodic import cycle_model
+            model, self._period = cycle_model(model)
         self.model = model
         self.cancel, self.linear_solver, self.method = cancel, linear_solver, method
         self.estimate = tolerance_k is not False
@@ -77,6 +82,10 @@ class RunSession:
         self._streamed_final = False
 
     def _stepper(self, problem, **kw) -> Stepper:
+        if self._period is not None and getattr(problem, "_cycle", None) is None:
+            from .periodic import start_cycle  # every mesh level gets its own settled start state
+            problem._cycle = start_cycle(problem, self._period, self.linear_solver)
+        self.cycle = getattr(problem, "_cycle", None)
         st = Stepper(problem, cancel=self.cancel, linear_solver=self.linear_solver, method=self.method, **kw)
         tol = self.settings.tolerance_k
         if st.method == "reduced" and tol is not None and self.estimate:
@@ -133,6 +142,8 @@ class RunSession:
                 self._series.abort()
             raise
         self._level_wall = time.perf_counter() - t0
+        if self.cycle is not None and self.last_event is not None:
+            self.cycle.closure_k = float(np.abs(self.last_event.field - self.problem.initial).max())
 
     def _close_writer(self) -> None:
         """Finish an earlier level's writer (its errors are reported when the final one closes)."""

@@ -4,6 +4,9 @@
     thermgui open FILE            open a model (or a results folder) in the app
     thermgui solve MODEL --out D  run headless and write results to D
     thermgui report DIR -o F.html one self-contained HTML design-review report of a finished run
+    thermgui zth MODEL --out D    thermal impedance curves and RC networks (solver.answers_cli)
+    thermgui whatif MODEL --out D scaled loads / shifted ambient by superposition
+    thermgui sweep SWEEP --out D  sweep cases on Dask (LocalCluster or --scheduler ADDRESS)
 """
 from __future__ import annotations
 
@@ -13,6 +16,7 @@ import sys
 from pathlib import Path
 
 from solver import __version__
+from solver import answers_cli
 from solver.cli import add_solve_arguments, solve_to_folder
 
 SAMPLES_DIR = Path(__file__).resolve().parent.parent / "samples"
@@ -36,6 +40,7 @@ def build_parser() -> argparse.ArgumentParser:
     p_rep.add_argument("results", help="results folder written by `thermgui solve` or the app")
     p_rep.add_argument("-o", "--output", help="HTML file to write (default: <folder>-report.html beside the folder)")
     p_rep.add_argument("--no-pictures", action="store_true", help="leave out the 3D pictures (no OpenGL needed)")
+    answers_cli.add_commands(sub)
     return parser
 
 
@@ -60,8 +65,10 @@ def main(argv=None) -> int:
     args = build_parser().parse_args(argv)
     if args.command == "report":
         return report_command(args)
-    if args.command == "solve":
+    if args.command == "solve" or args.command in answers_cli.COMMANDS:
         try:
+            if args.command != "solve":
+                return answers_cli.run_command(args)
             return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver, method=args.method,
                                    tolerance_k=args.tolerance, fields=args.fields)
         except KeyboardInterrupt:
@@ -70,7 +77,7 @@ def main(argv=None) -> int:
         except Exception as e:  # anything unexpected: a message, not a traceback (set THERMGUI_DEBUG=1 for one)
             if os.environ.get("THERMGUI_DEBUG"):
                 raise
-            sys.stderr.write(f"{args.model}: internal error: {type(e).__name__}: {e}\n"
+            sys.stderr.write(f"{getattr(args, 'model', getattr(args, 'sweep', ''))}: internal error: {type(e).__name__}: {e}\n"
                              "(set THERMGUI_DEBUG=1 to see the traceback)\n")
             return 1
     path = Path(args.path) if args.command == "open" else default_sample()
