@@ -58,6 +58,10 @@ class FieldSeriesWriter:
     def close(self) -> None:
         write_pvd(self.out_dir / SERIES_NAME, self.entries)
 
+    def written_files(self) -> list[str]:
+        """Every file this writer wrote, relative to its folder (for the results manifest)."""
+        return [name for _, name in self.entries] + [SERIES_NAME]
+
 
 def write_run_info(path, problem, recorder: RunRecorder, stepper, wall_s: float, accuracy: dict | None = None) -> None:
     """run.json: what was solved, how, and the energy balance (for the record and the app)."""
