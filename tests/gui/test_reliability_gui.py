@@ -39,9 +39,9 @@ def _window(open_main_window, tmp_path, d=None):
 
 def _run(qtbot, win):
     res = win.results
-    with qtbot.waitSignal(res.worker.done, timeout=60000):
+    with qtbot.waitSignal(res.worker.done, timeout=600000):  # accuracy control solves several meshes
         pass
-    qtbot.waitUntil(lambda: not res.running, timeout=60000)
+    qtbot.waitUntil(lambda: not res.running, timeout=600000)
 
 
 def test_app_run_keeps_the_users_files_in_the_results_folder(qtbot, tmp_path, open_main_window):
@@ -247,7 +247,7 @@ def test_kill_9_during_an_app_run_keeps_the_earlier_results(tmp_path):
     from tests.test_results_folders import _slow_model
 
     slow = _slow_model()
-    slow["run"]["duration_s"] = 3000
+    slow["run"]["duration_s"] = 1500
     path = tmp_path / "slow.json"
     save_model(parse_model(slow), path)
     quick = tmp_path / "quick.json"
@@ -264,7 +264,7 @@ def test_kill_9_during_an_app_run_keeps_the_earlier_results(tmp_path):
         t0 = time.monotonic()
         while len(list(tmp_path.glob(".slow.results.staging-*/**/*.vtu"))) < 5:
             assert proc.poll() is None, proc.stderr.read()
-            assert time.monotonic() - t0 < 120, "the app run never wrote frames"
+            assert time.monotonic() - t0 < 300, "the app run never wrote frames"
             time.sleep(0.05)
     finally:
         proc.send_signal(signal.SIGKILL)
