@@ -70,7 +70,8 @@ def main(argv=None) -> int:
             if args.command != "solve":
                 return answers_cli.run_command(args)
             return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver, method=args.method,
-                                   tolerance_k=args.tolerance, fields=args.fields)
+                                   tolerance_k=args.tolerance, fields=args.fields, force=args.force,
+                                   memory_limit_gb=args.memory_limit_gb)
         except KeyboardInterrupt:
             sys.stderr.write("interrupted\n")
             return 1
