@@ -26,7 +26,7 @@ import numpy as np
 from solver import __version__
 from solver.errors import ModelError
 from solver.runfolder import FinishedRun, is_run_folder, load_run
-from solver.writers import SERIES_NAME
+from solver.fieldseries import FIELD_FILE, LEGACY_SERIES
 
 from .runresults.peakview import STATUS_WORDS, VERDICT_FILL, VERDICT_TEXT, columns, display_row, review_order
 from .runresults.timefmt import format_time, time_unit
@@ -34,7 +34,7 @@ from .runresults.timefmt import format_time, time_unit
 CAUTION = ("Results are engineering estimates from a conduction model with assumed convection coefficients. "
            "Confirm them by measurement on real hardware, and defer to the applicable safety standards, codes "
            "and licensed practice before relying on them.")
-REQUIRED = ("run.json", SERIES_NAME, "peaks.csv", "history.csv")
+REQUIRED = ("run.json", "peaks.csv", "history.csv")
 LINE_COLOURS = ["#1f5fa8", "#c4512b", "#2c8a4b", "#8a3fa0", "#b08900", "#2a8f9e", "#7a4b2a", "#5c6770"]
 
 
@@ -52,12 +52,13 @@ def check_results_folder(folder) -> FinishedRun:
     if not folder.is_dir():
         raise ReportError(f"{folder}: not a results folder (no such folder)")
     missing = [n for n in REQUIRED if not (folder / n).is_file()]
-    started = (folder / "field").is_dir() or any((folder / n).exists() for n in REQUIRED)
+    started = ((folder / "field").is_dir() or (folder / FIELD_FILE).exists() or (folder / LEGACY_SERIES).exists()
+               or any((folder / n).exists() for n in REQUIRED))
     if missing and started:
         raise ReportError(f"{folder}: incomplete results folder (the run was cut short: {', '.join(missing)} "
                           "missing); run the model to the end, then make the report")
     if missing or not is_run_folder(folder):
-        raise ReportError(f"{folder}: not a results folder (run.json, field.pvd, peaks.csv and history.csv "
+        raise ReportError(f"{folder}: not a results folder (run.json, peaks.csv and history.csv "
                           "are missing)")
     try:
         run = load_run(folder)
