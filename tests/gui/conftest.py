@@ -6,6 +6,8 @@ recorded and answered "cancel" instead of waiting for a click.
 """
 from __future__ import annotations
 
+import gc
+
 import shutil
 from pathlib import Path
 
@@ -66,6 +68,7 @@ def open_main_window(qtbot, gui_state):
     def make(path=None, prompts=None, **kw):
         kw.setdefault("autosave_s", 0)
         kw.setdefault("size", (1360, 840))  # a fixed size for the tests of other things (first start: test_first_start)
+        gc.collect()  # earlier tests' windows are freed here, on the main thread, not by a run's worker thread
         w = open_window(path, prompts=prompts or ScriptedPrompts(), auto_update=False, **kw)
         qtbot.addWidget(w)
         qtbot.waitExposed(w)

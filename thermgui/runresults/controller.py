@@ -7,6 +7,7 @@ fills a :class:`~thermgui.runresults.store.ResultsStore` and presents it: field 
 """
 from __future__ import annotations
 
+import gc
 import shutil
 import tempfile
 import time
@@ -269,6 +270,11 @@ class ResultsController(ResultFiles, QObject):
         self.worker.succeeded.connect(self._on_succeeded)
         self.worker.failed.connect(self._on_failed)
         self.worker.stopped.connect(self._on_stopped)
+        # collect cyclic garbage here, on the window's thread: collected later on the worker's
+        # thread it could free Qt objects of a closed window there and deadlock with this thread
+        # (seen in the test suite: ~QObject on the worker waiting for the GIL, the GIL holder waiting
+        # for that QObject's lock)
+        gc.collect()
         self.thread = start_worker(self.worker)
         self.thread.finished.connect(self._on_thread_finished)
         self.run_action.setEnabled(False)
