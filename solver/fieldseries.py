@@ -25,6 +25,8 @@ with the whole mesh in every frame).
 """
 from __future__ import annotations
 
+import abc
+
 import queue
 import threading
 from pathlib import Path
@@ -227,8 +229,9 @@ class FieldWriter:
         steps.attrs["NSteps"] = np.int64(k)
 
 
-class FieldSeries:
-    """Frames of a finished run's field: ``times`` (s), :meth:`geometry`, :meth:`field` (°C)."""
+class FieldSeries(abc.ABC):
+    """Frames of a finished run's field: ``times`` (s), :meth:`geometry`, :meth:`field` (°C).
+    One subclass per file layout (VTKHDF, and the older .pvd series)."""
 
     layout = ""
 
@@ -238,11 +241,13 @@ class FieldSeries:
     def __len__(self) -> int:
         return len(self.times)
 
+    @abc.abstractmethod
     def geometry(self) -> dict:
-        raise NotImplementedError
+        """points_mm (N, 3), tets (E, 4), part_id (E,) of the field's mesh."""
 
+    @abc.abstractmethod
     def field(self, i: int) -> np.ndarray:
-        raise NotImplementedError
+        """Temperature (N,) in °C at output ``i``."""
 
     def close(self) -> None:
         pass

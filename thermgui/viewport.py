@@ -379,6 +379,8 @@ class Viewport(QWidget):
         (the reset alone frames the bounding sphere and leaves wide margins)."""
         if not self._parts or self.plotter.width() < 10 or self.plotter.height() < 10:
             return
+        if getattr(self.plotter, "ren_win", None) is None:  # the plotter was closed (window going away)
+            return
         lo = np.min([p["origin_mm"] for p in self._parts], axis=0)
         hi = np.max([np.add(p["origin_mm"], p["size_mm"]) for p in self._parts], axis=0)
         ratio = self.plotter.devicePixelRatioF()

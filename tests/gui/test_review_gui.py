@@ -2,6 +2,8 @@
 dialogs that start in the model's folder, and the small things of issue 13."""
 from __future__ import annotations
 
+from solver.results import PEAK_COLUMNS
+
 from pathlib import Path
 
 import pytest
@@ -224,7 +226,7 @@ def test_chart_empty_state_merged_limits_and_emphasis(qtbot, open_main_window, t
     assert chart.curves["foot"].opts["pen"].widthF() < 2.5
     # the error band, once the peak table carries one: shaded between peak ± error
     s = win.results.store
-    k = s.peak_rows[0].__len__() - 1
+    k = PEAK_COLUMNS.index("peak_error_k")
     for r in s.peak_rows:
         r[k] = "2.00"
     win.results.set_chart_parts([])

@@ -10,7 +10,6 @@ from __future__ import annotations
 import gc
 import shutil
 import tempfile
-import time
 from pathlib import Path
 
 import numpy as np
@@ -23,7 +22,8 @@ from PySide6.QtWidgets import (QCheckBox, QComboBox, QHBoxLayout, QLabel, QSizeP
 from solver.results import PEAK_COLUMNS
 
 from ..fileops import display_path
-from .autocut import box_visible, hottest_spot, likely_hot_spot, revealing_cut_z
+from .autocut import box_visible, likely_hot_spot, revealing_cut_z
+from .lookinside import CUT_CHOICES, LookInside
 from .chart import PartChart
 from .fieldview import FieldView, build_display
 from .messages import item_for_path
@@ -32,18 +32,16 @@ from .resultfiles import ResultFiles, previous_run
 from .runpanel import RunStatus
 from .store import ResultsStore, results_folder_for
 from .timefmt import format_time
+from .temprun import STALE_TEMP_S, TEMP_PREFIX, clean_stale_temp_runs  # noqa: F401 (re-exported)
 from .timeline import TimelineBar
 from .worker import RunWorker, start_worker
 
 LIVE_REDRAW_MS = 300  # shortest pause between live redraws while a run streams frames
 LIVE_DUTY = 0.05  # live redraws aim at this share of the wall time (the solve shares the CPU) ...
 LIVE_LONGEST_MS = 10000  # ... but the view is refreshed at least this often while a run streams
-TEMP_PREFIX = "thermgui-run-"  # temporary results folders of unsaved models
-STALE_TEMP_S = 7 * 86400  # such folders left behind by a session that ended abnormally go after a week
-CUT_CHOICES = [("Whole model", None), ("Cut across x", "x"), ("Cut across y", "y"), ("Cut across z", "z")]
 
 
-class ResultsController(ResultFiles, QObject):
+class ResultsController(LookInside, ResultFiles, QObject):
     def __init__(self, window):
         super().__init__(window)
         self.window = window
@@ -264,7 +262,7 @@ class ResultsController(ResultFiles, QObject):
         self.worker.succeeded.connect(self._on_succeeded)
         self.worker.failed.connect(self._on_failed)
         self.worker.stopped.connect(self._on_stopped)
-        # Collect cyclic garbage here, on the window's thread: if the collector first ran on the worker
+        # collect cyclic garbage here, on the window's thread: collected later on the worker's
         # thread it could free Qt objects of a closed window there and deadlock with this thread
         # (seen in the test suite: ~QObject on the worker waiting for the GIL, the GIL holder waiting
         # for that QObject's lock)
@@ -537,54 +535,6 @@ class ResultsController(ResultFiles, QObject):
         if self.store is not None and self.store.n_frames:
             self.timeline.set_index(self.store.index_at(time_s))
 
-    def _auto_cut(self) -> str:
-        """Cut across z just above the hottest part when its hot spot is hidden inside the model and
-        the user has not chosen a cut; returns the sentence for the status text ('' when no cut)."""
-        s = self.store
-        if s is None or self._user_cut:
-            return ""
-        hot = hottest_spot(s.peak_rows)
-        if hot is None:
-            return ""
-        name, xyz = hot
-        cut = revealing_cut_z(xyz, s.points_mm, s.part_bounds_mm.get(name),
-                              min_fraction=self.cut_slider.minimum() / 100)
-        if cut is None:
-            return getattr(self, "_auto_note", "") if self.cut_choice.currentIndex() != 0 else ""
-        fraction, z_mm = cut
-        if self.view.cut == ("z", fraction):  # already cut there from the first frame
-            return (f"; view cut at z = {z_mm:.1f} mm to show the hottest part ({name}); "
-                    "choose Whole model to see the outside")
-        self._auto_cutting = True
-        self._set_cut_controls("z", fraction)
-        try:
-            self._on_cut()
-        finally:
-            self._auto_cutting = False
-        return (f"; view cut at z = {z_mm:.1f} mm to show the hottest part ({name}); "
-                "choose Whole model to see the outside")
-
-    def _set_cut_controls(self, axis, fraction: float) -> None:
-        """Show a cut in the "Look inside" controls without acting on it."""
-        try:
-            for w in (self.cut_choice, self.cut_slider):
-                w.blockSignals(True)
-            self.cut_choice.setCurrentIndex([a for _, a in CUT_CHOICES].index(axis))
-            self.cut_slider.setValue(int(round(fraction * 100)))
-            self.cut_slider.setEnabled(axis is not None)
-        finally:
-            for w in (self.cut_choice, self.cut_slider):
-                w.blockSignals(False)
-
-    def _on_cut(self, *_):
-        if not self._auto_cutting:
-            self._user_cut = True
-        axis = CUT_CHOICES[self.cut_choice.currentIndex()][1]
-        self.cut_slider.setEnabled(axis is not None)
-        self.view.set_cut(axis, self.cut_slider.value() / 100.0)
-        if self.results_shown:
-            self.show_index(self.timeline.index)
-
     def _model_differs(self) -> bool:
         model = getattr(self.window.document, "model", None)
         return model is None or self._results_model is None or model.to_json_dict() != self._results_model
@@ -618,26 +568,6 @@ class ResultsController(ResultFiles, QObject):
         if obj is self.window and event.type() == QEvent.Close:
             self.shutdown()
         return False
-
-
-def clean_stale_temp_runs(max_age_s: float = STALE_TEMP_S) -> list[Path]:
-    """Remove temporary results folders of unsaved runs untouched for ``max_age_s`` seconds (left
-    behind by sessions that ended abnormally); returns the folders removed."""
-    gone = []
-    now = time.time()
-    try:
-        roots = list(Path(tempfile.gettempdir()).glob(TEMP_PREFIX + "*"))
-    except OSError:
-        return gone
-    for root in roots:
-        try:
-            newest = max([root.stat().st_mtime] + [p.stat().st_mtime for p in root.rglob("*")])
-        except OSError:
-            continue
-        if root.is_dir() and now - newest > max_age_s:
-            shutil.rmtree(root, ignore_errors=True)
-            gone.append(root)
-    return gone
 
 
 LIVE_MIN_SPAN_K = 5.0  # while a run streams, the colour scale spans at least this much above its cool end
