@@ -131,8 +131,10 @@ def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str
 
 
 def _write_error(out_dir, e: OSError) -> str:
-    """One line naming the folder (a FieldWriteError from the writer thread names it already)."""
-    return f"{e}\n" if isinstance(e, FieldWriteError) else f"{out_dir}: cannot write results ({e.strerror or e})\n"
+    """One line naming the folder (a FieldWriteError from the writer thread names it already); the
+    run wrote into its staging folder, so the results folder is as it was before the run."""
+    what = f"{e}" if isinstance(e, FieldWriteError) else f"{out_dir}: cannot write results ({e.strerror or e})"
+    return what + "; the folder was left as it was\n"
 
 
 def format_summary(rows) -> str:

@@ -45,32 +45,51 @@ class FinishedRun:
     def geometry(self) -> dict:
         """points_mm (N, 3), tets (E, 4), part_id (E,) of the field's mesh."""
         if self._geometry is None:
+            name = self.series.file_name
             try:
                 g = self.series.geometry()
             except ModelError:
                 raise
             except Exception as e:  # truncated or garbage field file
-                raise ModelError(("", f"the field file is damaged or truncated ({type(e).__name__}: {e})"),
+                raise ModelError(("", f"{name} is damaged or truncated ({type(e).__name__}: {e})"),
                                  str(self.folder)) from None
-            if g.get("tets") is None or g.get("part_id") is None:
-                raise ModelError(("", "the field file holds no tetrahedra or part ids"), str(self.folder))
+            why = _bad_geometry(g)
+            if why:
+                raise ModelError(("", f"{name} is damaged: {why}"), str(self.folder))
             self._geometry = g
         return self._geometry
 
     def field(self, i: int) -> np.ndarray:
         """Temperature (N,) in °C at output ``i``."""
         try:
-            f = np.asarray(self.series.field(i))
+            f = np.asarray(self.series.field(i), dtype=float)
         except ModelError:
             raise
         except Exception as e:
-            raise ModelError(("", f"frame {i} of the field file is damaged ({type(e).__name__}: {e})"),
-                             str(self.folder)) from None
+            raise ModelError(("", f"frame {i} of {self.series.file_name} is damaged or truncated "
+                                  f"({type(e).__name__}: {e})"), str(self.folder)) from None
         n = len(self.geometry()["points_mm"])
         if f.ndim != 1 or len(f) != n:
             raise ModelError(("", f"frame {i} does not hold a temperature at each of the {n:,} nodes "
                                   "(results of two runs mixed, or a damaged file)"), str(self.folder))
         return f
+
+
+def _bad_geometry(g: dict) -> str | None:
+    """What is wrong with a field file's mesh, or None (so a reader never indexes out of range)."""
+    pts, tets, part = g.get("points_mm"), g.get("tets"), g.get("part_id")
+    if pts is None or tets is None or part is None:
+        return "it holds no points, tetrahedra or part ids"
+    pts, tets, part = np.asarray(pts), np.asarray(tets), np.asarray(part)
+    if pts.ndim != 2 or pts.shape[1] != 3 or not np.issubdtype(pts.dtype, np.number) or not np.isfinite(pts).all():
+        return "the points are not finite (x, y, z) triples"
+    if tets.ndim != 2 or tets.shape[1] != 4 or not np.issubdtype(tets.dtype, np.integer):
+        return "the tetrahedra are not groups of four node numbers"
+    if len(tets) == 0 or tets.min() < 0 or tets.max() >= len(pts):
+        return f"a tetrahedron names a node outside 0…{len(pts) - 1:,}"
+    if part.shape != (len(tets),) or not np.issubdtype(part.dtype, np.integer):
+        return "the part ids do not match the tetrahedra"
+    return None
 
 
 def _text(path: Path, folder: Path) -> str:
@@ -100,6 +119,29 @@ def _numeric(row) -> bool:
         return False
 
 
+def _open_series(folder: Path) -> FieldSeries | None:
+    """The folder's field series (either layout); ModelError naming the field file if it is damaged."""
+    from .fieldseries import FIELD_FILE, LEGACY_SERIES
+
+    name = FIELD_FILE if (folder / FIELD_FILE).is_file() else LEGACY_SERIES
+    try:
+        series = open_field_series(folder)
+    except RecursionError:
+        raise ModelError(("", f"{name} is nested too deeply"), str(folder)) from None
+    except Exception as e:  # noqa: BLE001 - any damage to a file of another library's format
+        raise ModelError(("", f"{name} is damaged or truncated ({type(e).__name__}: {e})"), str(folder)) from None
+    if series is None:
+        return None
+    if len(series) == 0 or series.listed > len(series):
+        held = len(series)
+        series.close()
+        if held == 0:
+            raise ModelError(("", f"{name} is damaged or truncated: it holds no complete frame"), str(folder))
+        raise ModelError(("", f"{name} is damaged or truncated: it lists {series.listed} frames but holds "
+                              f"temperatures for {held}"), str(folder))
+    return series
+
+
 def load_run(folder) -> FinishedRun:
     """Open a results folder written by ``thermgui solve`` or the app; ModelError if it is not one,
     is incomplete (a run was cut short: "incomplete" in the message), mixed, damaged or in use."""
@@ -114,7 +156,6 @@ def load_run(folder) -> FinishedRun:
             raise ModelError(("", "run.json: \"model\" or \"part_names\" has the wrong type"), src)
         peaks = list(csv.DictReader(io.StringIO(_text(folder / "peaks.csv", folder), newline="")))
         rows = list(csv.reader(io.StringIO(_text(folder / "history.csv", folder), newline="")))
-        series = open_field_series(folder)
     except ModelError:
         raise
     except RecursionError:
@@ -122,8 +163,8 @@ def load_run(folder) -> FinishedRun:
     except (OSError, ValueError, KeyError, SyntaxError, csv.Error, UnicodeDecodeError, TypeError,
             AttributeError) as e:
         raise ModelError(("", f"results folder is incomplete or damaged ({type(e).__name__}: {e})"), src) from None
-    except Exception as e:  # a field file that no reader foresaw
-        raise ModelError(("", f"the field file is damaged ({type(e).__name__}: {e})"), src) from None
+    except Exception as e:  # noqa: BLE001 - damage that no check above foresaw
+        raise ModelError(("", f"results folder is damaged ({type(e).__name__}: {e})"), src) from None
     if not rows:
         raise ModelError(("", "history.csv is empty"), src)
     header, body = rows[0], rows[1:]
@@ -134,14 +175,20 @@ def load_run(folder) -> FinishedRun:
         raise ModelError(("", f"history.csv row {bad + 2} is not numbers ({', '.join(body[bad])[:80]!r})"), src) from None
     if history.ndim != 2 or history.shape[1] != len(header) or (body and any(len(r) != len(header) for r in body)):
         raise ModelError(("", "history.csv rows do not match its header"), src)
-    times = np.asarray(series.times, dtype=float) if series is not None else np.zeros(0)
-    if not np.all(np.isfinite(times)):
-        raise ModelError(("", "the field file has a time step that is not a number"), src)
-    run = FinishedRun(folder, info, times, series, peaks, header, history, notice=notice)
-    nodes = (info.get("mesh") or {}).get("nodes") if isinstance(info.get("mesh"), dict) else None
-    if run.has_fields and isinstance(nodes, int):
-        n = len(run.geometry()["points_mm"])
-        if n != nodes:
-            raise ModelError(("", f"mixed: the field file holds {n:,} nodes, run.json says {nodes:,} "
-                                  "(results of two different runs)"), src)
+    series = _open_series(folder)
+    try:
+        times = np.asarray(series.times, dtype=float) if series is not None else np.zeros(0)
+        if not np.all(np.isfinite(times)):
+            raise ModelError(("", f"{series.file_name} has a time step that is not a number"), src)
+        run = FinishedRun(folder, info, times, series, peaks, header, history, notice=notice)
+        nodes = (info.get("mesh") or {}).get("nodes") if isinstance(info.get("mesh"), dict) else None
+        if run.has_fields and isinstance(nodes, int):
+            n = len(run.geometry()["points_mm"])
+            if n != nodes:
+                raise ModelError(("", f"mixed: {series.file_name} holds {n:,} nodes, run.json says {nodes:,} "
+                                      "(results of two different runs)"), src)
+    except BaseException:
+        if series is not None:
+            series.close()
+        raise
     return run

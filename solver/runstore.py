@@ -508,6 +508,27 @@ def _remove_empty_dirs(root: Path, rels) -> None:
             p = p.parent
 
 
+def record_edits(folder, names) -> None:
+    """Accept hand-edited files of a complete results folder as the run's own: their size and
+    sha256 in ``manifest.json`` are written again, so the folder opens without "mixed or damaged"
+    and a later run into it may replace them (they are no longer the user's).
+
+    Without this an edited run file counts as the user's (docs/reliability.md, "A file the run
+    wrote and the user changed"). For tools and tests that derive a folder from a real run; the app
+    and ``thermgui solve`` never call it. ModelError if the folder has no complete manifest or a
+    name is not a file inside it."""
+    folder = Path(folder)
+    m = read_manifest(folder)
+    if m is None or m.get("state") != "complete":
+        raise ModelError(("", f"no complete {MANIFEST_NAME}: edits cannot be recorded"), str(folder))
+    for rel in names:
+        rel = str(rel)
+        if not _safe_relative(rel) or not (folder / rel).is_file():
+            raise ModelError(("", f"{rel!r} is not a file inside the folder"), str(folder))
+        m["files"][rel] = _file_meta(folder / rel)
+    _write_synced(folder / MANIFEST_NAME, json.dumps(m, indent=1) + "\n", tmp_dir=folder)
+
+
 # ---------------------------------------------------------------- the reader's side
 def check_folder(folder) -> str | None:
     """Check a results folder before reading it. Returns a notice (or None); ModelError if refused.

@@ -23,7 +23,9 @@ from solver import runstore
 from solver.cli import solve_to_folder
 from solver.errors import ModelError
 from solver.runfolder import load_run
+from solver.fieldseries import FIELD_FILE, LEGACY_SERIES
 from tests.hostile_cases import BASE
+from tests.runfolderkit import HDF_DAMAGE, field_frames, staged_frames, to_legacy_layout, truncate
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -61,12 +63,12 @@ def _start(model_path, out) -> subprocess.Popen:
 
 
 def _wait_for_frames(out: Path, n: int, proc: subprocess.Popen, limit_s: float = 300.0) -> None:
-    """Poll the staging folder beside ``out`` until it holds ``n`` frames (not a timed assertion)."""
+    """Poll the field file in the staging folder beside ``out`` until it holds ``n`` frames (a
+    limit on waiting, not a timed assertion)."""
     t0 = time.monotonic()
     while time.monotonic() - t0 < limit_s:
         assert proc.poll() is None, proc.communicate()
-        frames = list(out.parent.glob(f".{out.name}.staging-*/**/*.vtu"))
-        if len(frames) >= n:
+        if staged_frames(out) >= n:
             return
         time.sleep(0.05)
     raise AssertionError("the run never wrote frames")
@@ -79,12 +81,15 @@ def test_a_run_leaves_a_complete_folder_with_a_manifest(tmp_path):
     assert rc == 0, err
     m = json.loads((out / runstore.MANIFEST_NAME).read_text())
     assert m["state"] == "complete" and m["model_sha256"] == runstore.model_hash(solver.parse_model(BASE))
-    assert {"peaks.csv", "history.csv", "run.json"} <= set(m["files"])
+    assert set(m["files"]) == {"peaks.csv", "history.csv", "run.json", FIELD_FILE}
     assert len(m["frames"]) == 3  # t = 0, 2, 4 s
     for rel, meta in m["files"].items():
         assert (out / rel).stat().st_size == meta["bytes"]
+    assert m["files"][FIELD_FILE]["bytes"] > 0
     run = load_run(out)
-    assert run.notice is None and len(run.times) == 3
+    assert run.notice is None and len(run.times) == 3 and field_frames(out) == 3
+    assert [f["time_s"] for f in m["frames"]] == list(run.times)
+    assert sorted(p.name for p in out.iterdir()) == sorted([*m["files"], runstore.MANIFEST_NAME])
     assert not list(tmp_path.glob(".R.*")), "no lock or staging folder is left behind"
 
 
@@ -95,9 +100,24 @@ def test_a_rerun_replaces_only_its_own_files(tmp_path):
     fewer["run"]["output_every_s"] = 4.0
     assert _solve(_write(tmp_path, fewer, "m2.json"), out)[0] == 0
     run = load_run(out)
-    assert len(run.times) == 2
-    frames = sorted(p.name for p in out.rglob("*.vtu"))
-    assert len(frames) == 2, f"stale frames of the earlier run are left: {frames}"
+    assert len(run.times) == 2 and field_frames(out) == 2
+    m = json.loads((out / runstore.MANIFEST_NAME).read_text())
+    assert sorted(p.name for p in out.iterdir()) == sorted([*m["files"], runstore.MANIFEST_NAME])
+
+
+def test_a_rerun_over_a_folder_of_the_pvd_layout_removes_its_frames_and_keeps_the_users(tmp_path):
+    out = tmp_path / "R"
+    model = _write(tmp_path, BASE)
+    assert _solve(model, out)[0] == 0
+    to_legacy_layout(out)
+    (out / "notes.txt").write_text("mine")
+    assert len(list((out / "field").glob("*.vtu"))) == 3
+    rc, err = _solve(model, out)
+    assert rc == 2 and "notes.txt" in err  # the user's file: refused without --force
+    assert _solve(model, out, "--force")[0] == 0
+    assert not (out / LEGACY_SERIES).exists() and not (out / "field").exists(), "the earlier run's frames go"
+    assert (out / "notes.txt").read_text() == "mine"
+    assert load_run(out).notice is None and field_frames(out) == 3
 
 
 def test_foreign_files_refuse_the_folder_and_force_keeps_them(tmp_path):
@@ -136,14 +156,27 @@ def test_frames_of_another_run_make_a_folder_mixed(tmp_path):
     finer = copy.deepcopy(BASE)
     finer["mesh"]["cell_mm"] = 1.0
     assert _solve(_write(tmp_path, finer, "fine.json"), b)[0] == 0
-    frame = sorted(a.rglob("*.vtu"))[-1]
-    shutil.copy(sorted(b.rglob("*.vtu"))[-1], frame)
-    with pytest.raises(ModelError, match="mixed"):
+    shutil.copy(b / FIELD_FILE, a / FIELD_FILE)
+    with pytest.raises(ModelError, match="mixed or damaged.*field.vtkhdf"):
         load_run(a)
-    # the same without a manifest (a folder of the earlier layout): the node counts give it away
+    # the same without a manifest (a folder written before manifests): the node counts give it away
     (a / runstore.MANIFEST_NAME).unlink()
     with pytest.raises(ModelError, match="mixed"):
         load_run(a)
+
+
+def test_frames_of_another_run_make_a_pvd_folder_mixed(tmp_path):
+    a, b = tmp_path / "A", tmp_path / "B"
+    assert _solve(_write(tmp_path, BASE), a)[0] == 0
+    finer = copy.deepcopy(BASE)
+    finer["mesh"]["cell_mm"] = 1.0
+    assert _solve(_write(tmp_path, finer, "fine.json"), b)[0] == 0
+    to_legacy_layout(a)
+    to_legacy_layout(b)
+    shutil.copy(sorted((b / "field").glob("*.vtu"))[-1], sorted((a / "field").glob("*.vtu"))[-1])
+    with pytest.raises(ModelError, match="mixed"):
+        run = load_run(a)
+        run.field(len(run.times) - 1)
 
 
 def test_a_folder_without_manifest_opens_with_a_notice(tmp_path):
@@ -155,54 +188,97 @@ def test_a_folder_without_manifest_opens_with_a_notice(tmp_path):
     assert len(run.times) == 3 and np.isfinite(run.field(2)).all()
 
 
+def test_a_folder_of_the_pvd_layout_opens_with_a_notice(tmp_path):
+    out = tmp_path / "R"
+    assert _solve(_write(tmp_path, BASE), out)[0] == 0
+    want = load_run(out)
+    want_last = want.field(2).copy()
+    want.series.close()
+    to_legacy_layout(out)
+    run = load_run(out)
+    assert run.series.layout == "pvd"
+    assert run.notice and "before results folders carried a manifest" in run.notice
+    assert list(run.times) == list(want.times)
+    np.testing.assert_array_equal(run.field(2), want_last)
+
+
 # ---------------------------------------------------------------- damaged folders never raise anything else
-def _legacy(tmp_path) -> Path:
+def _unsealed(tmp_path) -> Path:
+    """A complete run without its manifest: as written before manifests (field.vtkhdf layout)."""
     out = tmp_path / "R"
     assert _solve(_write(tmp_path, BASE), out)[0] == 0
     (out / runstore.MANIFEST_NAME).unlink()
     return out
 
 
-DAMAGE = {
+TABLE_DAMAGE = {
     "history.csv not numbers": lambda d: (d / "history.csv").write_text("time_s,max:plate\nabc,def\n"),
     "history.csv empty": lambda d: (d / "history.csv").write_text(""),
     "run.json holds a list": lambda d: (d / "run.json").write_text("[1, 2]"),
     "run.json model is a list": lambda d: (d / "run.json").write_text('{"model": [1], "mesh": {}}'),
     "run.json nested 50k": lambda d: (d / "run.json").write_text("[" * 50_000 + "]" * 50_000),
     "run.json binary": lambda d: (d / "run.json").write_bytes(bytes(range(256))),
+    "peaks.csv huge field": lambda d: (d / "peaks.csv").write_text("part\n" + "x" * 200_000 + "\n"),
+    "peaks.csv missing": lambda d: (d / "peaks.csv").unlink(),
+}
+PVD_DAMAGE = {
     "field.pvd garbage": lambda d: (d / "field.pvd").write_text("<<<not xml"),
     "field.pvd points outside": lambda d: (d / "field.pvd").write_text(
         '<VTKFile><Collection><DataSet timestep="0" file="../../etc/passwd"/></Collection></VTKFile>'),
     "field.pvd bad time": lambda d: (d / "field.pvd").write_text(
         '<VTKFile><Collection><DataSet timestep="soon" file="x.vtu"/></Collection></VTKFile>'),
-    "peaks.csv huge field": lambda d: (d / "peaks.csv").write_text("part\n" + "x" * 200_000 + "\n"),
-    "peaks.csv missing": lambda d: (d / "peaks.csv").unlink(),
+    "field.pvd no frames": lambda d: (d / "field.pvd").write_text("<VTKFile><Collection/></VTKFile>"),
+    "a .vtu truncated": lambda d: truncate(sorted((d / "field").glob("*.vtu"))[-1], 0.5),
+    "a .vtu missing": lambda d: sorted((d / "field").glob("*.vtu"))[-1].unlink(),
 }
 
 
-@pytest.mark.parametrize("kind", list(DAMAGE))
+def _open_every_frame(out: Path) -> None:
+    run = load_run(out)  # some damage only shows when the frames are read
+    run.geometry()
+    for i in range(len(run.times)):
+        run.field(i)
+
+
+@pytest.mark.parametrize("kind", list(TABLE_DAMAGE) + list(HDF_DAMAGE))
 def test_damaged_folder_is_a_model_error(tmp_path, kind):
-    out = _legacy(tmp_path)
-    DAMAGE[kind](out)
-    with pytest.raises(ModelError) as err:  # some damage only shows when the frames are read
-        run = load_run(out)
-        for i in range(len(run.times)):
-            run.field(i)
+    out = _unsealed(tmp_path)
+    (TABLE_DAMAGE | HDF_DAMAGE)[kind](out)
+    with pytest.raises(ModelError) as err:
+        _open_every_frame(out)
+    assert str(out) in err.value.describe()
+    if kind in HDF_DAMAGE:
+        assert "field" in str(err.value)
+
+
+@pytest.mark.parametrize("kind", list(TABLE_DAMAGE) + list(PVD_DAMAGE))
+def test_damaged_folder_of_the_pvd_layout_is_a_model_error(tmp_path, kind):
+    out = to_legacy_layout(_unsealed(tmp_path))
+    (TABLE_DAMAGE | PVD_DAMAGE)[kind](out)
+    with pytest.raises(ModelError) as err:
+        _open_every_frame(out)
     assert str(out) in err.value.describe()
 
 
-@pytest.mark.parametrize("cut", [0.5, 0.0])
-def test_truncated_frame_is_refused(tmp_path, cut):
+@pytest.mark.parametrize("kind", list(HDF_DAMAGE))
+def test_a_damaged_field_file_under_a_manifest_is_refused_before_reading(tmp_path, kind):
     out = tmp_path / "R"
     assert _solve(_write(tmp_path, BASE), out)[0] == 0
-    frame = sorted(out.rglob("*.vtu"))[-1]
-    frame.write_bytes(frame.read_bytes()[: int(frame.stat().st_size * cut)])
-    with pytest.raises(ModelError, match="mixed or damaged"):
+    HDF_DAMAGE[kind](out)
+    with pytest.raises(ModelError, match="mixed or damaged.*field.vtkhdf"):
+        load_run(out)
+
+
+@pytest.mark.parametrize("cut", [0.5, 0.0])
+def test_truncated_field_file_is_refused(tmp_path, cut):
+    out = tmp_path / "R"
+    assert _solve(_write(tmp_path, BASE), out)[0] == 0
+    truncate(out / FIELD_FILE, cut)
+    with pytest.raises(ModelError, match="mixed or damaged.*field.vtkhdf"):
         load_run(out)
     (out / runstore.MANIFEST_NAME).unlink()
-    with pytest.raises(ModelError, match="damaged or truncated|nodes|mixed"):
-        run = load_run(out)
-        run.field(len(run.times) - 1)
+    with pytest.raises(ModelError, match="field.vtkhdf is damaged or truncated"):
+        _open_every_frame(out)
 
 
 # ---------------------------------------------------------------- cut short

@@ -8,7 +8,6 @@ one part lands at risk: its rating lies inside peak ± error (NOTES.md §4 addit
 from __future__ import annotations
 
 import csv
-import json
 import re
 
 import pytest
@@ -19,7 +18,7 @@ from PySide6.QtTest import QTest  # noqa: E402
 from modelkit import chip_on_plate  # noqa: E402
 from solver.cli import solve_to_folder  # noqa: E402
 from solver.model import parse_model, save_model  # noqa: E402
-from solver.runstore import _file_meta  # noqa: E402
+from solver.runstore import record_edits  # noqa: E402
 from thermgui.runresults.peakview import VERDICT_FILL  # noqa: E402
 
 pytestmark = pytest.mark.gui
@@ -42,10 +41,8 @@ def banded_run(tmp_path):
     by["plate"][k_status] = "at-risk"
     with open(out / "peaks.csv", "w", newline="") as fh:
         csv.writer(fh).writerows(rows)
-    # the folder's manifest records each file it wrote; record the edited table as the run's own
-    manifest = json.loads((out / "manifest.json").read_text())
-    manifest["files"]["peaks.csv"] = _file_meta(out / "peaks.csv")
-    (out / "manifest.json").write_text(json.dumps(manifest))
+    # an edited run file is otherwise the user's and the folder reads as changed: record it as the run's own
+    record_edits(out, ["peaks.csv"])
     return out, by, head
 
 
