@@ -23,6 +23,7 @@ from solver.model import load_model, parse_model, save_model  # noqa: E402
 from solver.runfolder import load_run  # noqa: E402
 from thermgui.runresults import results_folder_for  # noqa: E402
 from modelkit import chip_on_plate  # noqa: E402
+from runfolderkit import staged_frames, to_legacy_layout, truncate  # noqa: E402
 
 from .guikit import ScriptedPrompts  # noqa: E402
 
@@ -72,13 +73,14 @@ def test_app_run_keeps_the_users_files_in_the_results_folder(qtbot, tmp_path, op
     assert load_run(folder).notice is None
 
 
-def _legacy_folder(tmp_path) -> Path:
+def _unsealed_folder(tmp_path, layout="vtkhdf") -> Path:
+    """A finished run as written before manifests: field.vtkhdf, or the earlier field.pvd layout."""
     model = tmp_path / "m.json"
     save_model(parse_model(chip_on_plate()), model)
     out = tmp_path / "old.results"
     assert solve_to_folder(model, out, quiet=True) == 0
     (out / "manifest.json").unlink()  # as written before manifests
-    return out
+    return to_legacy_layout(out) if layout == "pvd" else out
 
 
 def _deep(d):
@@ -91,18 +93,15 @@ def _huge_name(d):
     (d / "run.json").write_text(json.dumps(info))
 
 
-def _truncate_frame(d):
-    f = sorted(d.rglob("*.vtu"))[-1]
-    f.write_bytes(f.read_bytes()[: f.stat().st_size // 2])
-
-
-DAMAGE = {
-    "non-numeric history.csv": lambda d: (d / "history.csv").write_text("time_s,max:chip\nnoon,hot\n"),
-    "list in run.json": lambda d: (d / "run.json").write_text("[1, 2, 3]"),
-    "truncated frame": _truncate_frame,
-    "garbage pvd": lambda d: (d / "field.pvd").write_bytes(b"\x00\xffgarbage<<"),
-    "131 KB part name": _huge_name,
-    "deeply nested run.json": _deep,
+DAMAGE = {  # (layout of the folder, damage done to it)
+    "non-numeric history.csv": ("vtkhdf", lambda d: (d / "history.csv").write_text("time_s,max:chip\nnoon,hot\n")),
+    "list in run.json": ("vtkhdf", lambda d: (d / "run.json").write_text("[1, 2, 3]")),
+    "truncated field.vtkhdf": ("vtkhdf", lambda d: truncate(d / "field.vtkhdf", 0.5)),
+    "garbage field.vtkhdf": ("vtkhdf", lambda d: (d / "field.vtkhdf").write_bytes(b"\x89HDF\r\n\x1a\ngarbage" * 40)),
+    "truncated .vtu frame": ("pvd", lambda d: truncate(sorted((d / "field").glob("*.vtu"))[-1], 0.5)),
+    "garbage pvd": ("pvd", lambda d: (d / "field.pvd").write_bytes(b"\x00\xffgarbage<<")),
+    "131 KB part name": ("vtkhdf", _huge_name),
+    "deeply nested run.json": ("vtkhdf", _deep),
 }
 
 
@@ -110,8 +109,9 @@ DAMAGE = {
 def test_damaged_results_folder_is_refused_in_the_window(qtbot, tmp_path, open_main_window, kind):
     win, path = _window(open_main_window, tmp_path)
     before = win.document.model.to_json_dict()
-    folder = _legacy_folder(tmp_path)
-    DAMAGE[kind](folder)
+    layout, damage = DAMAGE[kind]
+    folder = _unsealed_folder(tmp_path, layout)
+    damage(folder)
     # File > Open on the folder: an error in the window, the open model stays as it was
     assert not win.fileops.open_path(folder, ask_first=False)
     errors = win.prompts.errors()
@@ -261,7 +261,7 @@ def test_kill_9_during_an_app_run_keeps_the_earlier_results(tmp_path):
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
     try:
         t0 = time.monotonic()
-        while len(list(tmp_path.glob(".slow.results.staging-*/**/*.vtu"))) < 5:
+        while staged_frames(folder) < 5:
             assert proc.poll() is None, proc.stderr.read()
             assert time.monotonic() - t0 < 300, "the app run never wrote frames"
             time.sleep(0.05)
