@@ -247,7 +247,8 @@ def _matches(path: Path, meta) -> str | None:
         return None
     want = meta.get("bytes")
     if isinstance(want, int) and size != want:
-        return f"is {size:,} bytes, the manifest says {want:,}"
+        how = "truncated" if size < want else "changed"
+        return f"is {size:,} bytes but the run wrote {want:,}, so it was {how} after the run"
     digest = meta.get("sha256")
     if isinstance(digest, str) and size <= HASHED_BYTES:
         try:
@@ -554,8 +555,12 @@ def check_folder(folder) -> str | None:
         holder = read_lock(lock_path(folder))
         live = [h for h in staged if h.alive() is not False]
         if (folder / "run.json").is_file() and not live:
-            return (f"{folder.name} was written before results folders carried a manifest; it cannot be "
-                    "checked for files of another run")
+            from .fieldseries import FIELD_FILE, LEGACY_SERIES
+
+            older = (folder / LEGACY_SERIES).is_file() and not (folder / FIELD_FILE).is_file()
+            return (f"{folder.name} was written before results folders carried a manifest"
+                    + (" (its field is in the earlier field.pvd layout)" if older else "")
+                    + "; it cannot be checked for files of another run")
         if live or (holder is not None and holder.alive() is not False):
             who = (live[0] if live else holder).describe()
             raise ModelError(("", f"incomplete: a run is still writing these results ({who})"), src)

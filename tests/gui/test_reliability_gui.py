@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import json
 import os
+import shutil
 import signal
 import stat
 import subprocess
@@ -14,6 +15,7 @@ import sys
 import time
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 pytest.importorskip("pytestqt")
@@ -135,6 +137,67 @@ def test_a_cut_short_run_folder_says_incomplete(qtbot, tmp_path, open_main_windo
     assert not win.fileops.open_path(folder, ask_first=False)
     assert "incomplete" in win.prompts.errors()[-1] and "cut short" in win.prompts.errors()[-1]
     assert win.document.path == path
+
+
+def test_open_a_finished_run_in_either_field_layout(qtbot, tmp_path, open_main_window):
+    """As ``thermgui open DIR`` does (open_window on the folder): a complete field.vtkhdf run opens
+    without a note; the same run in the earlier .pvd layout opens the same frames, with a note."""
+    model = tmp_path / "m.json"
+    save_model(parse_model(chip_on_plate()), model)
+    new = tmp_path / "new.results"
+    assert solve_to_folder(model, new, quiet=True) == 0
+    old = tmp_path / "old.results"
+    shutil.copytree(new, old)
+    to_legacy_layout(old)
+    win = open_main_window(new)
+    res = win.results
+    assert not win.prompts.errors() and res.store is not None and res.results_shown
+    frames = len(load_run(new).times)
+    assert res.store.n_frames == frames and not res.status.message.isVisible()
+    last = res.store.frame(frames - 1).copy()
+    assert win.fileops.open_path(old, ask_first=False)
+    assert not win.prompts.errors() and res.store.n_frames == frames
+    np.testing.assert_array_equal(res.store.frame(frames - 1), last)
+    note = res.status.message.text()
+    assert res.status.message.isVisible() and "before results folders carried a manifest" in note
+    assert "field.pvd" in note
+
+
+def test_a_killed_solve_and_a_truncated_field_file_are_refused_and_the_model_stays(qtbot, tmp_path,
+                                                                                   open_main_window):
+    from tests.test_results_folders import _slow_model
+
+    win, path = _window(open_main_window, tmp_path)
+    before = win.document.model.to_json_dict()
+    slow = tmp_path / "slow.json"
+    slow.write_text(json.dumps(_slow_model()))
+    killed = tmp_path / "killed.results"
+    env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    proc = subprocess.Popen([sys.executable, "-m", "thermgui", "solve", str(slow), "--out", str(killed), "--quiet"],
+                            env=env, cwd=str(ROOT), stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    try:
+        t0 = time.monotonic()
+        while staged_frames(killed) < 3:
+            assert proc.poll() is None, proc.stderr.read()
+            assert time.monotonic() - t0 < 300, "the solve never wrote frames"
+            time.sleep(0.05)
+    finally:
+        proc.send_signal(signal.SIGKILL)
+        proc.wait()
+    assert not win.fileops.open_path(killed, ask_first=False)
+    said = win.prompts.errors()[-1]
+    assert str(killed) in said and "incomplete" in said and "cut short" in said and "Traceback" not in said
+    assert win.document.model.to_json_dict() == before and win.document.path == path
+    # a complete run whose field.vtkhdf was cut in half afterwards
+    cut = tmp_path / "cut.results"
+    assert solve_to_folder(path, cut, quiet=True) == 0
+    truncate(cut / "field.vtkhdf", 0.5)
+    assert not win.fileops.open_path(cut, ask_first=False)
+    said = win.prompts.errors()[-1]
+    assert str(cut) in said and "field.vtkhdf" in said and "truncated" in said and "Traceback" not in said
+    assert win.document.model.to_json_dict() == before and win.document.path == path
+    assert win.open_results(cut) is None  # the results menu's open: the message in the run panel
+    assert "truncated" in win.results.status.message.text()
 
 
 # ---------------------------------------------------------------- saving

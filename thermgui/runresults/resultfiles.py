@@ -61,7 +61,8 @@ class ResultFiles:
         self.status.started(f"Results of {Path(folder).name}", store.duration_s)
         self.status.finished(f"Opened {store.n_frames} outputs from {Path(folder).name} (not solved again)"
                              + cut_note)
-        if getattr(run, "notice", None):
+        if getattr(run, "notice", None):  # e.g. written before manifests: stays in the run panel
+            self.status.show_note(run.notice)
             self._status_bar(f"Note: {run.notice}")
         self.status.detail.setToolTip(str(folder))
         self.timeline.blockSignals(True)
