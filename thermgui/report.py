@@ -26,6 +26,7 @@ import numpy as np
 from solver import __version__
 from solver.errors import ModelError
 from solver.runfolder import FinishedRun, is_run_folder, load_run
+from solver.runstore import cut_short_runs
 from solver.fieldseries import FIELD_FILE, LEGACY_SERIES
 
 from .runresults.peakview import STATUS_WORDS, VERDICT_FILL, VERDICT_TEXT, columns, display_row, review_order
@@ -52,12 +53,14 @@ def check_results_folder(folder) -> FinishedRun:
     missing = [n for n in REQUIRED if not (folder / n).is_file()]
     started = ((folder / "field").is_dir() or (folder / FIELD_FILE).exists() or (folder / LEGACY_SERIES).exists()
                or any((folder / n).exists() for n in REQUIRED))
-    if not folder.is_dir():  # a first run cut short leaves only its staging folder beside the name
-        try:
-            load_run(folder)
-        except ModelError as e:
-            raise ReportError(e.describe()) from None
-        raise ReportError(f"{folder}: not a results folder (no such folder)")
+    if not folder.is_dir():
+        if cut_short_runs(folder):  # a first run cut short leaves only its staging folder beside the name
+            try:
+                load_run(folder)
+            except ModelError as e:
+                raise ReportError(e.describe()) from None  # "incomplete: … cut short" (or still running)
+        kind = "a file" if folder.exists() else "no such folder"
+        raise ReportError(f"{folder}: not a results folder ({kind})")
     if missing and started:
         raise ReportError(f"{folder}: incomplete results folder (the run was cut short: {', '.join(missing)} "
                           "missing); run the model to the end, then make the report")
