@@ -93,6 +93,35 @@ def test_a_run_leaves_a_complete_folder_with_a_manifest(tmp_path):
     assert not list(tmp_path.glob(".R.*")), "no lock or staging folder is left behind"
 
 
+def test_the_field_file_is_whole_before_the_manifest_is_written(tmp_path, monkeypatch):
+    """The background writer has finished and closed field.vtkhdf when the manifest is written and
+    the staging folder moved into place; the manifest holds the file's final size."""
+    import threading
+
+    import h5py
+
+    before = {t.ident for t in threading.enumerate()}
+    seen = {}
+    real = runstore.RunFolder.commit
+
+    def commit(self, written, info):
+        f = self.write_dir / FIELD_FILE
+        seen["writers"] = [t.name for t in threading.enumerate() if t.name == "field-writer" and t.ident not in before]
+        seen["written"] = list(written)
+        with h5py.File(f, "r") as fh:  # a file still open for writing in this process would be refused here
+            seen["steps"] = int(fh["VTKHDF"]["Steps"].attrs["NSteps"])
+        seen["bytes"] = f.stat().st_size
+        return real(self, written, info)
+
+    monkeypatch.setattr(runstore.RunFolder, "commit", commit)
+    out = tmp_path / "R"
+    assert _solve(_write(tmp_path, BASE), out)[0] == 0
+    m = json.loads((out / runstore.MANIFEST_NAME).read_text())
+    assert seen["writers"] == [] and FIELD_FILE in seen["written"]
+    assert seen["steps"] == len(m["frames"]) == 3
+    assert m["files"][FIELD_FILE]["bytes"] == seen["bytes"] == (out / FIELD_FILE).stat().st_size
+
+
 def test_a_rerun_replaces_only_its_own_files(tmp_path):
     out = tmp_path / "R"
     assert _solve(_write(tmp_path, BASE), out)[0] == 0
