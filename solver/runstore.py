@@ -583,6 +583,9 @@ def check_folder(folder) -> str | None:
             problems.append(f"{rel} {why}")
     if problems:
         more = f" and {len(problems) - 3} more" if len(problems) > 3 else ""
+        changed = any(not p.endswith(("is missing", "is not inside the folder")) for p in problems)
+        hint = ("; a run file changed afterwards counts as yours and is never replaced: move it out of the "
+                "folder and run the model again" if changed else "; run the model again")
         raise ModelError(("", "mixed or damaged: the files no longer match the run that wrote them ("
-                              + "; ".join(problems[:3]) + more + ")"), src)
+                              + "; ".join(problems[:3]) + more + ")" + hint), src)
     return None

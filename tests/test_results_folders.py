@@ -172,11 +172,37 @@ def test_a_file_the_user_changed_counts_as_theirs(tmp_path):
     model = _write(tmp_path, BASE)
     assert _solve(model, out)[0] == 0
     (out / "peaks.csv").write_text("my own table\n")
-    with pytest.raises(ModelError, match="mixed or damaged"):
+    with pytest.raises(ModelError, match="mixed or damaged.*peaks.csv.*counts as yours") as e:
         load_run(out)
+    assert "move it out of the folder" in str(e.value)
     rc, err = _solve(model, out, "--force")
     assert rc == 2 and "peaks.csv" in err and "never replaces" in err
     assert (out / "peaks.csv").read_text() == "my own table\n"
+    # moved away, the earlier run's other files are replaced by the next run
+    (out / "peaks.csv").rename(tmp_path / "my table.csv")
+    assert _solve(model, out)[0] == 0 and load_run(out).notice is None
+
+
+def test_record_edits_makes_an_edited_file_the_runs_own(tmp_path):
+    out = tmp_path / "R"
+    model = _write(tmp_path, BASE)
+    assert _solve(model, out)[0] == 0
+    rows = (out / "peaks.csv").read_text().splitlines()
+    rows[1] = rows[1].replace(",ok", ",at-risk")
+    (out / "peaks.csv").write_text("\n".join(rows) + "\n")
+    with pytest.raises(ModelError, match="mixed or damaged"):
+        load_run(out)
+    runstore.record_edits(out, ["peaks.csv"])
+    assert load_run(out).peaks[0]["status"] == "at-risk"
+    assert runstore.foreign_files(out) == []
+    assert _solve(model, out)[0] == 0  # now the run's own: a rerun replaces it without --force
+    assert load_run(out).peaks[0]["status"] == "ok"
+    for bad in ("../model.json", "nothing.csv"):
+        with pytest.raises(ModelError, match="not a file inside"):
+            runstore.record_edits(out, [bad])
+    (out / runstore.MANIFEST_NAME).unlink()
+    with pytest.raises(ModelError, match="no complete manifest"):
+        runstore.record_edits(out, ["peaks.csv"])
 
 
 def test_frames_of_another_run_make_a_folder_mixed(tmp_path):
