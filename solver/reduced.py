@@ -224,8 +224,12 @@ def run_reduced(stepper) -> Iterator:
                 break
         stepper.solves = basis.solves
         info.basis_s = _time.perf_counter() - t_start
-    finally:
+    except BaseException:
         basis.close()
+        raise
+    if stepper.keep_shift_solver:  # handed on: the caller closes it
+        stepper.shift_solver, basis.solver = (basis.solver, 1.0 / basis.shift), None
+    basis.close()
     info.basis_size, info.blocks = basis.size, len(basis.block_sizes) - 1
     if not info.converged:
         p.warnings.append(f"the reduced basis did not reach {tol:g} K ({info.describe()}); the full system was "

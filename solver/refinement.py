@@ -123,25 +123,31 @@ def axis_indicators(mesh: Mesh, k_cell: np.ndarray, field: np.ndarray, dual: np.
     return out
 
 
-def influence_fields(problem, hot_nodes, tau_s: float, method: str = "direct") -> np.ndarray:
+def influence_fields(problem, hot_nodes, tau_s: float, method: str = "direct", solver=None) -> np.ndarray:
     """Influence fields z (N, P): (M/τ + K) z = e_i for a unit heat input at each hot node.
 
     z tells how much a local error in the heat balance moves the temperature at that node over
-    times of order τ (s); M lumped capacity (J/K), K conduction + convection (W/K).
+    times of order τ (s); M capacity (J/K), K conduction + convection (W/K). ``solver`` is a
+    factorization of that matrix already made (for example the reduced basis's, whose τ is then
+    passed), which is used and left open; otherwise one is made with ``method`` (lumped M).
+    z only steers where the mesh is refined, so a single-precision factorization is enough.
     """
     from .linsolve import make_solver
 
-    a = (problem.stiffness + sp.diags(problem.lumped / float(tau_s))).tocsr()
     rhs = np.zeros((problem.n_nodes, len(hot_nodes)))
     rhs[np.asarray(hot_nodes, dtype=np.int64), np.arange(len(hot_nodes))] = 1.0
-    solver = make_solver(a, method)
+    own = solver is None
+    if own:
+        a = (problem.stiffness + sp.diags(problem.lumped / float(tau_s))).tocsr()
+        solver = make_solver(a, method)
     try:
         if getattr(solver, "iterative", False):  # Krylov solvers take one right-hand side at a time
             z = np.column_stack([solver.solve(rhs[:, j]) for j in range(rhs.shape[1])])
         else:
             z = solver.solve(rhs)
     finally:
-        solver.close()
+        if own:
+            solver.close()
     return np.asarray(z).reshape(problem.n_nodes, len(hot_nodes))
 
 

@@ -28,8 +28,8 @@ from typing import Callable, Iterator
 
 import numpy as np
 
+from .accuracy import GROWTH_PER_LEVEL, MIN_LEVELS_TO_ACCEPT, AccuracySettings, Ladder, time_error_bound
 from .budget import check_budget, memory_limit
-from .accuracy import MIN_LEVELS_TO_ACCEPT, AccuracySettings, Ladder, time_error_bound
 from .mesh import BYTES_PER_NODE_ESTIMATE, available_memory_bytes, build_mesh, estimate_nodes
 from .meshreport import resolution_report
 from .problem import build_problem
@@ -114,7 +114,14 @@ class RunSession:
             # the basis error is a small share of the peak tolerance, so the mesh error dominates
             own = st.tolerance_k if st.tolerance_k is not None else REDUCED_DEFAULT_TOLERANCE_K
             st.tolerance_k = max(MIN_BASIS_TOLERANCE_K, min(own, BASIS_SHARE * tol))
+        st.keep_shift_solver = self.estimate  # the basis's factorization serves the influence fields
         return st
+
+    def _release_shift_solver(self) -> None:
+        held = getattr(self.stepper, "shift_solver", None)
+        if held is not None:
+            self.stepper.shift_solver = None
+            held[0].close()
 
     @property
     def warnings(self) -> list[str]:
@@ -206,9 +213,14 @@ class RunSession:
             hot = [self.problem.part_nodes.argmax(f, i) for f, i in zip(fields, goal)]
         duals = None
         if DUAL_WEIGHTED:
-            z = influence_fields(self.problem, hot, float(self.model.run.duration_s),
-                                 _dual_method(self.stepper.choice.method))
+            held = getattr(self.stepper, "shift_solver", None)
+            if held is not None:  # the reduced basis's K + M/τ factorization, reused
+                z = influence_fields(self.problem, hot, held[1], solver=held[0])
+            else:
+                z = influence_fields(self.problem, hot, float(self.model.run.duration_s),
+                                     _dual_method(self.stepper.choice.method))
             duals = [z[:, j] for j in range(z.shape[1])]
+        self._release_shift_solver()
         lines, _ = refined_lines(self.model, self.problem.mesh, fields, duals, hot, goal or None)
         return lines
 
@@ -219,6 +231,14 @@ class RunSession:
         except BaseException:  # failed, cancelled, or the caller stopped iterating: nothing is installed
             self.abort()
             raise
+        finally:
+            self._release_shift_solver()
+
+    def _predicted_next_nodes(self) -> int:
+        """Node count of the next level, from the growth of the last one (before planning it)."""
+        n = self.ladder.nodes
+        growth = n[-1] / n[-2] if len(n) >= 2 and n[-2] > 0 else GROWTH_PER_LEVEL
+        return int(n[-1] * min(4.0, max(1.2, growth)))
 
     def _events(self) -> Iterator[StepEvent]:
         if not self.estimate:
@@ -238,6 +258,11 @@ class RunSession:
             self.ladder.add(self.problem, self.recorder.peak.copy(), self._level_wall, self.stepper.method, solver_err)
             if not s.refine and k >= 2:
                 break
+            if s.refine:  # stop before planning a level that a budget already forbids
+                guess = self._predicted_next_nodes()
+                fits = guess * BYTES_PER_NODE_ESTIMATE <= 0.7 * available_memory_bytes()
+                if self.ladder.done(solver_err, time.perf_counter() - self.t_start, guess, fits):
+                    break
             lines = self._next_lines()
             est = estimate_nodes(self.model, lines)
             memory_ok = est * BYTES_PER_NODE_ESTIMATE <= 0.7 * available_memory_bytes()

@@ -138,6 +138,10 @@ class Stepper:
         self._solvers: OrderedDict = OrderedDict()
         self.factorizations = 0
         self.solves = 0
+        # a reduced run may hand its shifted factorization (K + M/τ, τ in s) on to the caller, who
+        # then owns it and must close it (the accuracy ladder reuses it for influence fields)
+        self.keep_shift_solver = False
+        self.shift_solver = None  # (solver, tau_s) after a reduced run when keep_shift_solver
         self.rejected_steps = 0
         if self.adaptive:
             from .adaptive import AdaptivePlan

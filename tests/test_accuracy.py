@@ -216,3 +216,48 @@ def test_influence_fields_with_each_solver(method):
         e = np.zeros(problem.n_nodes)
         e[node] = 1.0
         assert np.linalg.norm(a @ z[:, j] - e) <= 1e-6 * np.linalg.norm(e)
+
+
+def test_ladder_plans_no_level_it_will_not_solve(monkeypatch):
+    """A ladder stopped by mesh.max_levels = 3 plans the next mesh (influence fields and new
+    planes) after levels 0 and 1 only; the reduced basis's factorization is reused for the
+    influence fields and released at the end."""
+    import solver.session as session_mod
+
+    calls = []
+    real = session_mod.influence_fields
+
+    def counting(problem, hot, tau_s, method="direct", solver=None):
+        calls.append((problem.n_nodes, solver is not None, tau_s))
+        return real(problem, hot, tau_s, method, solver=solver)
+
+    monkeypatch.setattr(session_mod, "influence_fields", counting)
+    d = heated_box(4.0, 1e-4, max_levels=3)
+    session, row = solve(d)
+    assert len(session.ladder.levels) == 3
+    assert len(calls) == 2
+    assert all(reused for _, reused, _ in calls)
+    shift = session.stepper.reduced_info.shift_per_s
+    assert calls[-1][2] == pytest.approx(1.0 / shift)
+    assert session.stepper.shift_solver is None
+    assert "mesh.max_levels (3)" in session.ladder.stop_reason
+
+
+def test_reused_factorization_gives_the_influence_field():
+    """The influence field from a handed-on K + M/τ factorization solves that system."""
+    from solver.linsolve import make_solver
+    from solver.refinement import influence_fields
+
+    problem = solver.build_problem(solver.parse_model(heated_box(2.0, None)))
+    tau = 35.0
+    a = problem.step_matrix(tau, 1.0)
+    fac = make_solver(a, "direct")
+    hot = [3, problem.n_nodes // 3]
+    z = influence_fields(problem, hot, tau, solver=fac)
+    for j, node in enumerate(hot):
+        e = np.zeros(problem.n_nodes)
+        e[node] = 1.0
+        assert np.linalg.norm(a @ z[:, j] - e) <= 1e-8
+    z2 = influence_fields(problem, hot, tau, solver=fac)  # left open by influence_fields: usable again
+    assert np.allclose(z, z2)
+    fac.close()
