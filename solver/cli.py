@@ -64,20 +64,24 @@ class ProgressBar:
 
 def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str = "auto",
                     stream=None, err=None, method: str | None = None, tolerance_k="model",
-                    fields: str = "all") -> int:
+                    fields: str = "all", force: bool = False, memory_limit_gb: float | None = None) -> int:
     """Run a model file and write results; returns the exit status (streams default to stdout/stderr)."""
     stream = stream if stream is not None else sys.stdout
     err = err if err is not None else sys.stderr
     t0 = time.perf_counter()
     try:
         model = load_model(model_path)
+        if memory_limit_gb is not None and not (0 < memory_limit_gb < 1e6):
+            raise ModelError(("--memory-limit-gb", f"must be a positive number of GB (got {memory_limit_gb:g})"))
         session = RunSession(model, out_dir, linear_solver=linear_solver, method=method, tolerance_k=tolerance_k,
-                             fields=fields)
+                             fields=fields, force=force,
+                             memory_limit_bytes=None if memory_limit_gb is None else int(memory_limit_gb * 1e9))
     except ModelError as e:
         err.write(e.with_source(e.source or str(model_path)).describe() + "\n")
         return 2
     say = (lambda msg: None) if quiet else (lambda msg: err.write(msg + "\n"))
     say(f"{model_path}: {session.describe()}")
+    say(f"  memory estimate before meshing: about {session.memory_estimate.total_bytes / 1e9:.2g} GB")
     for line in session.resolution():
         say(f"  mesh in {line}")
     for w in session.warnings:
@@ -127,8 +131,10 @@ def solve_to_folder(model_path, out_dir, quiet: bool = False, linear_solver: str
 
 
 def _write_error(out_dir, e: OSError) -> str:
-    """One line naming the folder (a FieldWriteError from the writer thread names it already)."""
-    return f"{e}\n" if isinstance(e, FieldWriteError) else f"{out_dir}: cannot write results ({e.strerror or e})\n"
+    """One line naming the folder (a FieldWriteError from the writer thread names it already); the
+    run wrote into its staging folder, so the results folder is as it was before the run."""
+    what = f"{e}" if isinstance(e, FieldWriteError) else f"{out_dir}: cannot write results ({e.strerror or e})"
+    return what + "; the folder was left as it was\n"
 
 
 def format_summary(rows) -> str:
@@ -158,6 +164,10 @@ def add_solve_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--tolerance", type=_tolerance, default="model", metavar="K",
                    help="override mesh.tolerance_k: refine until each rated peak's estimated error is below K "
                         "kelvin, or 'none' to keep the file's mesh (its error is still estimated)")
+    p.add_argument("--force", action="store_true",
+                   help="write into a folder that holds other files (they are kept, never deleted)")
+    p.add_argument("--memory-limit-gb", type=float, default=None, metavar="GB",
+                   help="refuse a run whose estimated memory exceeds this (default: 70%% of available memory)")
     p.add_argument("--method", choices=["auto", "full", "reduced"], default=None,
                    help="override run.method: auto (by predicted cost; the default), step the full system, "
                         "or a reduced basis within run.tolerance_k")
@@ -168,7 +178,8 @@ def main(argv=None) -> int:
     add_solve_arguments(parser)
     args = parser.parse_args(argv)
     return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver, method=args.method,
-                           tolerance_k=args.tolerance, fields=args.fields)
+                           tolerance_k=args.tolerance, fields=args.fields, force=args.force,
+                           memory_limit_gb=args.memory_limit_gb)
 
 
 def _tolerance(text: str):

@@ -234,9 +234,12 @@ class FieldSeries(abc.ABC):
     One subclass per file layout (VTKHDF, and the older .pvd series)."""
 
     layout = ""
+    file_name = ""  # the file that indexes the series, relative to the results folder
 
-    def __init__(self, times):
+    def __init__(self, times, listed: int | None = None):
         self.times = np.asarray(times, dtype=float)
+        # frames the file lists; more than len(times) means some are not all there (a truncated file)
+        self.listed = len(self.times) if listed is None else int(listed)
 
     def __len__(self) -> int:
         return len(self.times)
@@ -257,19 +260,24 @@ class HDFFieldSeries(FieldSeries):
     """``field.vtkhdf`` (this module's layout); frames read on demand."""
 
     layout = "vtkhdf"
+    file_name = FIELD_FILE
 
     def __init__(self, path):
         self.path = Path(path)
         self._fh = None
-        g = self._group()
-        steps = g["Steps"]
-        self.n_points = int(g["NumberOfPoints"][0])
-        values = np.asarray(steps["Values"][...], dtype=float)
-        offsets = np.asarray(steps["PointDataOffsets"][FIELD_NAME][...], dtype=np.int64)
-        temp = g["PointData"][FIELD_NAME]
-        usable = int(min(len(values), len(offsets), temp.shape[0] // max(1, self.n_points)))
+        try:
+            g = self._group()
+            steps = g["Steps"]
+            self.n_points = int(g["NumberOfPoints"][0])
+            values = np.asarray(steps["Values"][...], dtype=float)
+            offsets = np.asarray(steps["PointDataOffsets"][FIELD_NAME][...], dtype=np.int64)
+            temp = g["PointData"][FIELD_NAME]
+            usable = int(min(len(values), len(offsets), temp.shape[0] // max(1, self.n_points)))
+        except BaseException:
+            self.close()  # a damaged file: do not keep it open
+            raise
         self._offsets = offsets[:usable]
-        super().__init__(values[:usable])
+        super().__init__(values[:usable], listed=len(values))
 
     def _group(self):
         """The /VTKHDF group, opening the file (again, after :meth:`close`) when needed."""
@@ -297,6 +305,7 @@ class LegacyFieldSeries(FieldSeries):
     """``field.pvd`` + ``field/t_*.vtu`` (every frame a whole mesh), from runs before the VTKHDF layout."""
 
     layout = "pvd"
+    file_name = LEGACY_SERIES
 
     def __init__(self, path):
         series = read_pvd(path)

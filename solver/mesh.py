@@ -13,6 +13,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import ndimage
 
+from .budget import check_budget
 from .errors import ModelError
 from .gridlines import axis_lines, layers_needed
 
@@ -158,6 +159,8 @@ def build_mesh(model, memory_limit_bytes: int | None = None, lines_mm=None) -> M
     """Mesh a validated model on its planned planes, or on ``lines_mm`` (three arrays of plane
     positions in mm that include every part face, e.g. from :mod:`solver.refinement`).
     Raises ModelError for a mesh that would not fit in memory."""
+    if memory_limit_bytes is None and lines_mm is None:
+        check_budget(model)  # counted from the model before any plane is placed (solver/budget.py)
     lines_mm = plan_lines(model) if lines_mm is None else tuple(np.asarray(l, dtype=float) for l in lines_mm)
     est_nodes = estimate_nodes(model, lines_mm)
     est_bytes = est_nodes * BYTES_PER_NODE_ESTIMATE

@@ -15,6 +15,7 @@ from typing import Annotated, Literal, Optional, Union
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
 from .errors import ModelError
+from .limits import check_limits
 from .materials import BUILTIN_MATERIALS, Material
 
 FORMAT_NAME = "thermgui-model"
@@ -24,6 +25,8 @@ SIDES = ("x-", "x+", "y-", "y+", "z-", "z+", "exposed")
 SCHEMES = ("backward-euler", "crank-nicolson", "forward-euler")
 MASS_KINDS = ("consistent", "lumped")
 MAX_STEPS = 5_000_000  # time steps one run may take
+MAX_FILE_BYTES = 16 * 1024 * 1024  # a model file is a few kB; a 16 MB cap keeps /dev/zero and the like out
+MAX_DEPTH = 32  # nesting of a model file is at most about 6 levels
 
 
 class _Strict(BaseModel):
@@ -145,6 +148,8 @@ class MeshSettings(_Strict):
     max_nodes: Annotated[int, Field(ge=1000, le=50_000_000)] = 2_000_000  # refinement budget: nodes
     max_levels: Annotated[int, Field(ge=2, le=20)] = 8  # refinement budget: meshes solved
     time_limit_s: Optional[Positive] = 900.0  # refinement budget: wall time before the last level
+    # memory budget of a run in GB (default: 70 % of the memory available when it starts); solver/budget.py
+    memory_limit_gb: Optional[Annotated[float, Field(gt=0, le=1e6)]] = None
 
 
 class RunSettings(_Strict):
@@ -404,7 +409,7 @@ def parse_model(data, source: str | None = None) -> Model:
         model = Model.model_validate(data)
     except ValidationError as err:
         raise ModelError(_format_pydantic(err), source) from None
-    issues = _cross_check(model)
+    issues = _cross_check(model) + check_limits(model)
     if issues:
         raise ModelError(issues, source)
     return model
@@ -419,7 +424,7 @@ def load_model(path) -> Model:
     path = Path(path)
     src = str(path)
     try:
-        text = path.read_text(encoding="utf-8")
+        text = _read_capped(path, src)
     except FileNotFoundError:
         raise ModelError(("", "file not found"), src) from None
     except IsADirectoryError:
@@ -432,13 +437,47 @@ def load_model(path) -> Model:
         checked = json.loads(text, parse_constant=_reject_constants, object_pairs_hook=_KeyedObject.from_pairs)
     except json.JSONDecodeError as e:
         raise ModelError(("", f"not valid JSON: {e.msg} at line {e.lineno}, column {e.colno}"), src) from None
+    except RecursionError:
+        raise ModelError(("", f"nested too deeply (a model file nests at most {MAX_DEPTH} levels)"), src) from None
     except ValueError as e:
         raise ModelError(("", f"not valid JSON: {e} (JSON numbers must be finite)"), src) from None
+    depth = _depth(checked)
+    if depth > MAX_DEPTH:
+        raise ModelError(("", f"nested {depth} levels deep; a model file nests at most {MAX_DEPTH} levels"), src)
     repeated = _repeated_keys(checked)
     if repeated:
         raise ModelError([(path, "this key appears more than once in the same object; JSON readers keep only the "
                                  "last value, so remove the one you do not mean") for path in repeated], src)
     return parse_model(json.loads(text), src)
+
+
+def _read_capped(path: Path, src: str) -> str:
+    """The file's text, refusing anything but a regular file of at most MAX_FILE_BYTES."""
+    import stat as _stat
+
+    st = path.stat()
+    if _stat.S_ISDIR(st.st_mode):
+        raise IsADirectoryError(src)
+    if not _stat.S_ISREG(st.st_mode):
+        raise ModelError(("", "not a regular file (a device, pipe or socket cannot be a model file)"), src)
+    with open(path, "rb") as fh:
+        raw = fh.read(MAX_FILE_BYTES + 1)
+    if len(raw) > MAX_FILE_BYTES:
+        raise ModelError(("", f"larger than {MAX_FILE_BYTES // (1024 * 1024)} MB; a model file is a few kB"), src)
+    return raw.decode("utf-8")
+
+
+def _depth(node) -> int:
+    """Nesting depth of parsed JSON, without recursion."""
+    best, stack = 0, [(node, 1)]
+    while stack:
+        n, d = stack.pop()
+        if isinstance(n, (dict, list)):
+            best = max(best, d)
+            if d > MAX_DEPTH:
+                return d
+            stack.extend((v, d + 1) for v in (n.values() if isinstance(n, dict) else n))
+    return best
 
 
 class _KeyedObject(dict):
@@ -472,23 +511,68 @@ def _repeated_keys(node, path: str = "") -> list[str]:
 
 
 def save_model(model: Model, path) -> None:
-    """Write the model as pretty JSON through a temporary file and an atomic rename."""
-    import os
-    import tempfile
+    """Write the model as pretty JSON through a temporary file and an atomic rename.
 
-    path = Path(path)
+    A symbolic link is written through (its target gets the new text, the link stays); an existing
+    file keeps its permission bits; a new file gets the usual ones (0666 less the umask). The
+    temporary file is named ``.~<name>.<pid>.tmp`` beside the target, so one left by a killed save
+    is recognised and removed by :func:`clean_stale_temps` on the next start."""
+    import os
+    import stat as _stat
+
+    target = Path(os.path.realpath(path))
     text = json.dumps(model.to_json_dict(), indent=2) + "\n"
-    fd, tmp = tempfile.mkstemp(prefix=".~" + path.name, dir=str(path.parent or "."))
     try:
+        mode = _stat.S_IMODE(target.stat().st_mode)
+    except FileNotFoundError:
+        umask = os.umask(0)
+        os.umask(umask)
+        mode = 0o666 & ~umask
+    tmp = target.parent / f"{TEMP_PREFIX}{target.name}.{os.getpid()}.tmp"
+    try:
+        fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o600)
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(text)
             fh.flush()
+            os.fchmod(fh.fileno(), mode)
             os.fsync(fh.fileno())
-        os.replace(tmp, path)
+        os.replace(tmp, target)
     except BaseException:
         if os.path.exists(tmp):
             os.unlink(tmp)
         raise
+
+
+TEMP_PREFIX = ".~"
+
+
+def clean_stale_temps(folder) -> list:
+    """Remove ``.~<name>.<pid>.tmp`` files in ``folder`` whose writing process is gone."""
+    import os
+
+    removed = []
+    try:
+        entries = list(Path(folder).glob(f"{TEMP_PREFIX}*.tmp"))
+    except OSError:
+        return removed
+    for p in entries:
+        m = re.match(rf"^{re.escape(TEMP_PREFIX)}.+\.(\d+)\.tmp$", p.name)
+        if not m or not p.is_file() or p.is_symlink():
+            continue
+        pid = int(m.group(1))
+        try:
+            os.kill(pid, 0)
+            continue  # still running (or not ours to judge)
+        except ProcessLookupError:
+            pass
+        except (PermissionError, OverflowError):
+            continue
+        try:
+            p.unlink()
+            removed.append(p)
+        except OSError:
+            pass
+    return removed
 
 
 def is_finite_number(v) -> bool:

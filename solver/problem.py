@@ -215,6 +215,7 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
     for i, p in enumerate(model.parts):
         if part_vol[i] <= 0:
             warnings.append(f"part {p.name!r} is entirely covered by later parts and holds no volume")
+
     shares = assemble.grid_volume_shares(pattern, h_cell, n_parts, part_blocks(model, mesh))
     heat_profiles = []
     for i, hl in enumerate(model.heat_loads):
@@ -223,6 +224,10 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
             issues.append((f"heat_loads[{i}].part", f"part {hl.part!r} holds no volume (covered by later parts), "
                                                     "so it cannot take a heat load"))
         heat_profiles.append((pi, make_profile(hl.profile)))
+    for i, p in enumerate(model.parts):
+        if part_vol[i] <= 0 and p.rated_c is not None:  # its row would read "ok" with no peak at all
+            issues.append((f"parts[{i}].rated_c", f"part {p.name!r} holds no volume (covered by later parts), "
+                                                  "so its rating cannot be checked; remove the overlap or the rating"))
 
     conv_loads = []
     conv_tris, conv_h = [], []

@@ -13,23 +13,30 @@ each level is solved in full and streamed, ``event.level`` tells which, and ``se
 is the level being solved; the last level streamed is the one reported, with an error bound on
 every peak. With ``mesh.tolerance_k: null`` the file's mesh is reported, and two finer meshes
 are solved only to bound its error (then the file's mesh is solved again, as the last level).
+
+With an output folder every file is written into a staging folder beside it and moved into place,
+with a manifest, by :meth:`finish` (:mod:`solver.runstore`); a run that stops early leaves the
+folder as it was.
 """
 from __future__ import annotations
 
 import dataclasses
 import time
+import weakref
 from pathlib import Path
 from typing import Callable, Iterator
 
 import numpy as np
 
 from .accuracy import GROWTH_PER_LEVEL, MIN_LEVELS_TO_ACCEPT, AccuracySettings, Ladder, time_error_bound
+from .budget import check_budget, memory_limit
 from .mesh import BYTES_PER_NODE_ESTIMATE, available_memory_bytes, build_mesh, estimate_nodes
 from .meshreport import resolution_report
 from .problem import build_problem
 from .reduced import DEFAULT_TOLERANCE_K as REDUCED_DEFAULT_TOLERANCE_K
 from .refinement import influence_fields, refined_lines
 from .results import PeakRow, RunRecorder
+from .runstore import RunFolder, model_hash
 from .stepping import StepEvent, Stepper
 from .fieldseries import FieldWriter
 from .writers import write_history_csv, write_peaks_csv, write_run_info
@@ -55,7 +62,8 @@ class RunSession:
 
     def __init__(self, model, out_dir=None, cancel: Callable[[], bool] | None = None,
                  linear_solver: str = "auto", keep_fields: bool | None = None, method: str | None = None,
-                 tolerance_k="model", fields: str = "all"):
+                 tolerance_k="model", fields: str = "all", force: bool = False,
+                 memory_limit_bytes: int | None = None, frames_in_memory: bool = False):
         self.t_start = time.perf_counter()
         self.cycle = None  # periodic.CycleInfo of the level being solved, when run.periodic
         self._period = None
@@ -64,13 +72,27 @@ class RunSession:
             model, self._period = cycle_model(model)
         self.model = model
         self.cancel, self.linear_solver, self.method = cancel, linear_solver, method
-        self.estimate = tolerance_k is not False
-        self.settings = AccuracySettings.from_model(model, None if tolerance_k is False else tolerance_k)
-        self.ladder = Ladder(model, self.settings)
-        self.problem = build_problem(model)
-        self.stepper = self._stepper(self.problem)
-        self.level = 0
         self.out_dir = Path(out_dir) if out_dir is not None else None
+        # cheap checks first, before anything is written: the memory budget (counted from the model),
+        # then the folder (lock, foreign files, staging folder); then the big work
+        with memory_limit(memory_limit_bytes):
+            self.memory_estimate = check_budget(model, keep_fields=(keep_fields if keep_fields is not None
+                                                                    else out_dir is None) or frames_in_memory,
+                                                out_dir=self.out_dir)
+        self.folder = RunFolder(self.out_dir, force=force).begin() if self.out_dir is not None else None
+        if self.folder is not None:  # a session dropped before it finished leaves no lock or staging behind
+            weakref.finalize(self, self.folder.abort)
+        try:
+            self.estimate = tolerance_k is not False
+            self.settings = AccuracySettings.from_model(model, None if tolerance_k is False else tolerance_k)
+            self.ladder = Ladder(model, self.settings)
+            with memory_limit(memory_limit_bytes):
+                self.problem = build_problem(model)
+            self.stepper = self._stepper(self.problem)
+        except BaseException:
+            self.abort()
+            raise
+        self.level = 0
         self._series = None
         self.fields = fields
         self.recorder = None
@@ -129,9 +151,8 @@ class RunSession:
     def _solve_level(self, stream_fields: bool) -> Iterator[StepEvent]:
         sink = None
         self._close_writer()  # an earlier level's file is replaced (or left, if this level is not streamed)
-        if stream_fields and self.out_dir is not None:
-            self.out_dir.mkdir(parents=True, exist_ok=True)
-            self._series = FieldWriter(self.out_dir, self.problem, fields=self.fields)
+        if stream_fields and self.folder is not None:
+            self._series = FieldWriter(self.folder.write_dir, self.problem, fields=self.fields)
             sink = self._series
         keep = self.keep_fields or (self.out_dir is not None and not stream_fields and self._fits_in_memory())
         self.recorder = RunRecorder(self.problem, field_sink=sink, keep_fields=keep,
@@ -207,6 +228,9 @@ class RunSession:
         """Run every level's steps, recording each; yields every event (the caller may stop early)."""
         try:
             yield from self._events()
+        except BaseException:  # failed, cancelled, or the caller stopped iterating: nothing is installed
+            self.abort()
+            raise
         finally:
             self._release_shift_solver()
 
@@ -310,24 +334,41 @@ class RunSession:
         if err is not None:
             for i, r in enumerate(rows):
                 r.peak_error_k = float(err[i]) if np.isfinite(err[i]) else None
-        if self.out_dir is not None:
-            if self._streamed_final:
-                self._series.close()  # waits for the queued frames; OSError naming the folder on failure
-            else:
-                self._write_kept_fields()
-            write_peaks_csv(self.out_dir / "peaks.csv", rows)
-            write_history_csv(self.out_dir / "history.csv", self.recorder)
-            write_run_info(self.out_dir / "run.json", self.problem, self.recorder, self.stepper,
-                           time.perf_counter() - self.t_start, accuracy=self.accuracy_record(),
-                           field_files=self.written_files(),
-                           field_write_s=self._series.write_s if self._series is not None else None)
+        if self.folder is not None:
+            d = self.folder.write_dir
+            try:
+                if self._streamed_final:
+                    self._series.close()  # waits for the queued frames; OSError naming the folder on failure
+                else:
+                    self._series = self._write_kept_fields()
+                write_peaks_csv(d / "peaks.csv", rows)
+                write_history_csv(d / "history.csv", self.recorder)
+                write_run_info(d / "run.json", self.problem, self.recorder, self.stepper,
+                               time.perf_counter() - self.t_start, accuracy=self.accuracy_record(),
+                               field_files=self.written_files(),
+                               field_write_s=getattr(self._series, "write_s", None))
+                info = {"model_sha256": model_hash(self.model), "nodes": int(self.problem.n_nodes),
+                        "tetrahedra": int(self.problem.mesh.n_tets),
+                        "frames": [{"time_s": float(t)} for t in self.recorder.times]}
+                written = self.written_files()
+                self.folder.commit(["peaks.csv", "history.csv", "run.json", *written], info)
+            except BaseException:
+                self.abort()
+                raise
         return rows
 
-    def _write_kept_fields(self) -> None:
-        """Fields of a level that was not streamed (kept in memory), written now."""
-        self.out_dir.mkdir(parents=True, exist_ok=True)
+    def abort(self) -> None:
+        """Drop the staged files and the folder lock (the results folder stays as it was)."""
+        if getattr(self, "_series", None) is not None:
+            self._series.abort()
+        if getattr(self, "folder", None) is not None:
+            self.folder.abort()
+
+    def _write_kept_fields(self):
+        """Fields of a level that was not streamed (kept in memory), written now (into the staging folder)."""
         self._close_writer()
-        self._series = FieldWriter(self.out_dir, self.problem, fields=self.fields)
+        writer = FieldWriter(self.folder.write_dir, self.problem, fields=self.fields)
         for t, f in zip(self.recorder.times, self.recorder.fields):
-            self._series(t, f)
-        self._series.close()
+            writer(t, f)
+        writer.close()
+        return writer

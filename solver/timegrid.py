@@ -26,12 +26,11 @@ class TimeStep:
 def output_times(duration: float, every: float) -> np.ndarray:
     """0, every, 2·every, … and the duration (added if it is not a multiple)."""
     n = int(math.floor(duration / every + 1e-9))
-    times = [k * every for k in range(n + 1)]
+    times = np.arange(n + 1, dtype=float) * every
     if duration - times[-1] > TIME_TOL:
-        times.append(duration)
-    else:
-        times[-1] = duration
-    return np.array(times)
+        return np.append(times, duration)
+    times[-1] = duration
+    return times
 
 
 def merge_times(times) -> np.ndarray:
@@ -57,6 +56,11 @@ def plan_steps(duration: float, step: float, theta: float, breakpoints, outputs,
     outs = merge_times(outputs)
     damp = damp_after_jumps and 0.0 < theta < 1.0
     steps: list[TimeStep] = []
+
+    def lands_on_output(t: float) -> bool:  # binary search: planning stays linear in the outputs
+        i = int(np.searchsorted(outs, t - TIME_TOL))
+        return i < len(outs) and abs(outs[i] - t) <= TIME_TOL
+
     for a, b in zip(marks[:-1], marks[1:]):
         n = max(1, int(math.ceil((b - a) / step - 1e-9)))
         h = (b - a) / n
@@ -64,7 +68,7 @@ def plan_steps(duration: float, step: float, theta: float, breakpoints, outputs,
         for k in range(n):
             t0 = a + k * h
             t1 = b if k == n - 1 else a + (k + 1) * h
-            is_out = bool(np.any(np.abs(outs - t1) <= TIME_TOL))
+            is_out = lands_on_output(t1)
             if k == 0 and damp and not starts_smoothly:
                 mid = t0 + 0.5 * (t1 - t0)
                 steps.append(TimeStep(t0, mid, 1.0, False))

@@ -298,7 +298,7 @@ def test_fields_none_and_method_auto_on_the_command_line(tmp_path):
     out = tmp_path / "bare"
     r = _thermgui("solve", model, "--out", out, "--fields", "none", "--method", "auto")
     assert r.returncode == 0, r.stderr
-    assert sorted(p.name for p in out.iterdir()) == ["history.csv", "peaks.csv", "run.json"]
+    assert sorted(p.name for p in out.iterdir()) == ["history.csv", "manifest.json", "peaks.csv", "run.json"]
     assert "fields: none written" in r.stdout and "method: " in r.stdout
     info = json.loads((out / "run.json").read_text())
     assert info["solver"]["method"] in ("full", "reduced") and info["solver"]["method_reason"]

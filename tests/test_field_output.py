@@ -16,8 +16,8 @@ from solver.cli import solve_to_folder
 from solver.fieldseries import FIELD_FILE, FieldWriteError, FieldWriter, open_field_series
 from solver.runfolder import is_run_folder, load_run
 from solver.session import RunSession
-from solver.vtkxml import write_pvd, write_vtu
 from tests.modelkit import chip_on_plate
+from tests.runfolderkit import to_legacy_layout
 
 
 @pytest.fixture(scope="module")
@@ -103,19 +103,10 @@ def test_cli_exit_1_with_the_folder_named_when_the_field_cannot_be_written(tmp_p
 
 
 def _legacy_copy(src, dst):
-    """The same run in the layout written before field.vtkhdf: field.pvd + one whole-mesh .vtu per frame."""
+    """The same run in the layout written before field.vtkhdf (and before manifests): field.pvd +
+    one whole-mesh .vtu per frame."""
     shutil.copytree(src, dst)
-    s = open_field_series(src)
-    g = s.geometry()
-    (dst / "field").mkdir()
-    entries = []
-    for i, t in enumerate(s.times):
-        name = f"field/t_{i:05d}.vtu"
-        write_vtu(dst / name, g["points_mm"], g["tets"], {"temperature_c": s.field(i)}, {"part_id": g["part_id"]}, t)
-        entries.append((t, name))
-    write_pvd(dst / "field.pvd", entries)
-    s.close()
-    (dst / FIELD_FILE).unlink()
+    to_legacy_layout(dst)
 
 
 def test_folders_written_before_still_open(tmp_path):
@@ -126,6 +117,7 @@ def test_folders_written_before_still_open(tmp_path):
     _legacy_copy(new, tmp_path / "old")
     a, b = load_run(new), load_run(tmp_path / "old")
     assert a.series.layout == "vtkhdf" and b.series.layout == "pvd"
+    assert a.notice is None and "field.pvd layout" in b.notice
     np.testing.assert_array_equal(a.times, b.times)
     for key in ("points_mm", "tets", "part_id"):
         np.testing.assert_array_equal(a.geometry()[key], b.geometry()[key])
@@ -144,7 +136,7 @@ def test_a_run_without_fields_is_still_a_results_folder(tmp_path):
     model.write_text(json.dumps(chip_on_plate()))
     out = tmp_path / "out"
     assert solve_to_folder(model, out, quiet=True, fields="none") == 0
-    assert sorted(p.name for p in out.iterdir()) == ["history.csv", "peaks.csv", "run.json"]
+    assert sorted(p.name for p in out.iterdir()) == ["history.csv", "manifest.json", "peaks.csv", "run.json"]
     assert is_run_folder(out)
     run = load_run(out)
     assert not run.has_fields and len(run.history) > 1

@@ -215,6 +215,10 @@ def test_heat_load_on_a_part_that_holds_no_volume(tmp_path):
         solver.build_problem(model)
     assert err.value.first_path == "heat_loads[0].part" and "no volume" in str(err.value)
     d["heat_loads"] = []
+    with pytest.raises(solver.ModelError) as err:  # a rated part with no volume would be listed "ok"
+        solver.build_problem(solver.parse_model(d))
+    assert err.value.first_path == "parts[0].rated_c" and "no volume" in str(err.value)
+    del d["parts"][0]["rated_c"]
     problem = solver.build_problem(solver.parse_model(d))
     assert any("'cube'" in w and "covered" in w for w in problem.warnings)
     assert any("'all'" in w and "no exposed face" in w for w in problem.warnings)

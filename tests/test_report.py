@@ -23,6 +23,8 @@ import pytest
 from modelkit import chip_on_plate
 from solver.cli import solve_to_folder
 from solver.model import parse_model, save_model
+from solver.runstore import record_edits
+from runfolderkit import to_legacy_layout
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -88,6 +90,7 @@ def finished(tmp_path_factory):
     by["plate"][head.index("status")] = "at-risk"
     with open(out / "peaks.csv", "w", newline="") as fh:
         csv.writer(fh).writerows(rows)
+    record_edits(out, ["peaks.csv"])  # else the edited table is the user's and the folder reads as changed
     return base, out, by, head
 
 
@@ -137,6 +140,7 @@ def test_report_without_accuracy_record_says_so(finished, tmp_path):
     info = json.loads((copy / "run.json").read_text())
     del info["accuracy"]
     (copy / "run.json").write_text(json.dumps(info))
+    record_edits(copy, ["run.json"])
     r = cli("report", str(copy), "--no-pictures")
     assert r.returncode == 0, r.stderr
     target = tmp_path / "plain.results-report.html"  # the default: beside the folder
@@ -157,6 +161,7 @@ def test_incomplete_folder_exit_2_nothing_written(finished, tmp_path, cut):
         info = json.loads((folder / "run.json").read_text())
         info["model"]["run"]["duration_s"] = 2 * float(info["model"]["run"]["duration_s"])
         (folder / "run.json").write_text(json.dumps(info))
+        record_edits(folder, ["run.json"])
     before = sorted(p.name for p in tmp_path.rglob("*"))
     target = tmp_path / "r.html"
     r = cli("report", str(folder), "-o", str(target))
@@ -164,6 +169,44 @@ def test_incomplete_folder_exit_2_nothing_written(finished, tmp_path, cut):
     assert "incomplete" in r.stderr and str(folder) in r.stderr
     assert "Traceback" not in r.stderr
     assert not target.exists() and sorted(p.name for p in tmp_path.rglob("*")) == before
+
+
+def test_a_killed_first_run_is_incomplete(tmp_path):
+    """A first run killed while solving leaves only its staging folder beside the name it was given."""
+    folder = tmp_path / "killed.results"
+    staging = tmp_path / ".killed.results.staging-4194999"  # a pid above Linux's largest: the run is gone
+    staging.mkdir()
+    (staging / ".thermgui-staging").write_text(json.dumps({"pid": 4_194_999, "host": os.uname().nodename,
+                                                          "started": "2026-01-01T00:00:00Z"}))
+    target = tmp_path / "r.html"
+    r = cli("report", str(folder), "-o", str(target))
+    assert r.returncode == 2 and "incomplete" in r.stderr and "cut short" in r.stderr and str(folder) in r.stderr
+    assert "Traceback" not in r.stderr and not target.exists()
+
+
+def test_a_folder_of_the_pvd_layout_is_reported_with_a_note(finished, tmp_path):
+    _, out, _, _ = finished
+    old = tmp_path / "old.results"
+    shutil.copytree(out, old)
+    to_legacy_layout(old)
+    target = tmp_path / "r.html"
+    r = cli("report", str(old), "-o", str(target), "--no-pictures")
+    assert r.returncode == 0, r.stderr
+    assert "note:" in r.stderr and "field.pvd layout" in r.stderr
+    text = " ".join(read_page(target).text)
+    assert "Note on the results folder" in text and "At the hottest moment" in text
+
+
+def test_a_truncated_field_file_is_refused(finished, tmp_path):
+    _, out, _, _ = finished
+    cut = tmp_path / "cut.results"
+    shutil.copytree(out, cut)
+    data = (cut / "field.vtkhdf").read_bytes()
+    (cut / "field.vtkhdf").write_bytes(data[: len(data) // 2])
+    target = tmp_path / "r.html"
+    r = cli("report", str(cut), "-o", str(target))
+    assert r.returncode == 2 and "field.vtkhdf" in r.stderr and "truncated" in r.stderr
+    assert "Traceback" not in r.stderr and not target.exists()
 
 
 @pytest.mark.parametrize("which", ["a model folder", "no such folder", "a file"])

@@ -13,6 +13,7 @@ from solver.cli import solve_to_folder
 from solver.errors import ModelError
 from solver.model import parse_model, save_model
 from solver.runfolder import load_run
+from solver.results import PEAK_COLUMNS
 from solver.session import RunSession
 from thermgui.runresults.autocut import hottest_spot, on_outer_box, revealing_cut_z
 from thermgui.runresults.messages import describe_error, item_for_path
@@ -102,7 +103,8 @@ def test_over_rating_sets(solved):
     assert live.ever_over() == {"chip"}
     # the finished table says the same
     rows = {r[0]: r for r in live.peak_rows}
-    assert rows["chip"][-1] == "over" and rows["plate"][-1] == "ok" and rows["foot"][-1] == "unrated"
+    st = PEAK_COLUMNS.index("status")
+    assert rows["chip"][st] == "over" and rows["plate"][st] == "ok" and rows["foot"][st] == "unrated"
     assert live.rated_parts() == ["plate", "chip"]
     assert live.rating("foot") is None and live.rating("chip") == 40.0
 

@@ -33,10 +33,33 @@ def open_window(path=None, **window_kwargs):
     return window
 
 
+def install_error_hook(window) -> None:
+    """Errors nothing else caught are shown in the window (path and cause), not only on stderr.
+    THERMGUI_DEBUG=1 keeps Python's own traceback on stderr as well."""
+    import os
+
+    from PySide6.QtWidgets import QMessageBox
+
+    previous = sys.excepthook
+
+    def hook(kind, value, tb):
+        if os.environ.get("THERMGUI_DEBUG"):
+            previous(kind, value, tb)
+        try:
+            QMessageBox.warning(window, "Something went wrong",
+                                f"{kind.__name__}: {value}\n\nYour model is still open; save it under a new name "
+                                "if in doubt. (Set THERMGUI_DEBUG=1 for details.)")
+        except Exception:  # noqa: BLE001 - never fail inside the hook
+            previous(kind, value, tb)
+
+    sys.excepthook = hook
+
+
 def run_app(path) -> int:
     """Open the app on ``path`` and run the event loop; returns the exit code."""
     app = make_application()
     window = open_window(path)
+    install_error_hook(window)
     code = app.exec()
     window.shutdown()
     return code

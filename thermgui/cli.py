@@ -49,14 +49,17 @@ def report_command(args) -> int:
     written), 1 when the file cannot be written."""
     from .report import ReportError, write_report  # Qt-free
 
+    notices: list[str] = []
     try:
-        out = write_report(args.results, args.output, pictures=not args.no_pictures)
+        out = write_report(args.results, args.output, pictures=not args.no_pictures, notices=notices)
     except ReportError as e:
         sys.stderr.write(f"{e}\n")
         return 2
     except OSError as e:
         sys.stderr.write(f"{args.output or args.results}: cannot write the report ({e.strerror or e})\n")
         return 1
+    for n in notices:
+        sys.stderr.write(f"note: {n}\n")
     print(f"report written to {out}")
     return 0
 
@@ -70,7 +73,8 @@ def main(argv=None) -> int:
             if args.command != "solve":
                 return answers_cli.run_command(args)
             return solve_to_folder(args.model, args.out, args.quiet, args.linear_solver, method=args.method,
-                                   tolerance_k=args.tolerance, fields=args.fields)
+                                   tolerance_k=args.tolerance, fields=args.fields, force=args.force,
+                                   memory_limit_gb=args.memory_limit_gb)
         except KeyboardInterrupt:
             sys.stderr.write("interrupted\n")
             return 1

@@ -11,14 +11,15 @@ from __future__ import annotations
 import hashlib
 import json
 import os
-import tempfile
+import itertools
+import re
 import time
 from pathlib import Path
 
 from PySide6.QtCore import QObject, QSettings, QStandardPaths, QTimer, Signal
 
 from solver.errors import ModelError
-from solver.model import load_model, parse_model, save_model
+from solver.model import clean_stale_temps, load_model, parse_model, save_model
 from solver.runfolder import is_run_folder, load_run
 
 from .document import blank_model
@@ -63,20 +64,38 @@ def open_settings() -> QSettings:
     return QSettings(str(d / "settings.ini"), QSettings.IniFormat)
 
 
-def recovery_file(model_path: Path | None, folder: Path | None = None) -> Path:
-    """Recovery file of a model path (one per file; one shared by untitled models)."""
+def recovery_file(model_path: Path | None, folder: Path | None = None, untitled_key: str = "untitled") -> Path:
+    """Recovery file of a model path (one per file); an untitled model's is keyed by its window."""
     folder = folder or state_dir() / "recovery"
     if model_path is None:
-        key = "untitled"
+        key = untitled_key
     else:
         full = str(Path(model_path).resolve())
         key = Path(model_path).stem[:40] + "-" + hashlib.sha1(full.encode()).hexdigest()[:12]
     return folder / f"{key}.recovery.json"
 
 
+_WINDOWS = itertools.count(1)
+
+
+def _untitled_key_alive(name: str) -> bool:
+    """True if an ``untitled-<pid>-<n>`` recovery file belongs to a process that is still running."""
+    m = re.match(r"^untitled-(\d+)-\d+\.recovery\.json$", name)
+    if not m:
+        return False
+    try:
+        os.kill(int(m.group(1)), 0)
+    except ProcessLookupError:
+        return False
+    except (PermissionError, OverflowError):
+        return True
+    return True
+
+
 def _write_atomic(path: Path, text: str) -> None:
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=".~" + path.name, dir=str(path.parent))
+    tmp = path.parent / f".~{path.name}.{os.getpid()}.tmp"  # removed by clean_stale_temps after a kill
+    fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o600)
     try:
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(text)
@@ -98,6 +117,8 @@ class FileOps(QObject):
         self.window = window
         self.settings = settings if settings is not None else open_settings()
         self.recovery_dir = Path(recovery_dir) if recovery_dir else state_dir() / "recovery"
+        self.untitled_key = f"untitled-{os.getpid()}-{next(_WINDOWS)}"  # one recovery file per window
+        clean_stale_temps(self.recovery_dir)
         self._autosaved_index = None
         self.timer = QTimer(self)
         self.timer.timeout.connect(self.autosave)
@@ -171,12 +192,14 @@ class FileOps(QObject):
         if ask_first and not self.maybe_discard("opening another model"):
             return False
         template = None
-        run_folder = False
+        results = None
         try:
-            if is_run_folder(path):
-                run_folder = True
+            if path.is_dir() or is_run_folder(path):
+                from .runresults.store import ResultsStore
+
                 run = load_run(path)
                 model = parse_model(run.model_dict, str(path / "run.json"))
+                results = (run, ResultsStore.from_finished(run))  # every frame read before anything changes
                 model_path = None
             else:
                 model = load_model(path)
@@ -190,13 +213,19 @@ class FileOps(QObject):
             if not path.exists():
                 self._forget(path)
             return False
+        except (Exception, RecursionError) as e:  # damaged in a way no check foresaw: a message, never a traceback
+            self.prompts.error("Cannot open model", f"{path} could not be opened; nothing was changed.\n\n"
+                                                    f"{path}: damaged or unreadable ({type(e).__name__}: {e})")
+            return False
+        if model_path is not None:
+            clean_stale_temps(Path(model_path).resolve().parent)
         self.doc.reset(model, model_path, template_name=template)
         if model_path is not None:
             self._remember(model_path)
         if offer_recovery:
             self.offer_recovery()
-        if run_folder and hasattr(self.window, "open_results"):  # a model file (a sample too) is no results folder
-            self.window.open_results(path)
+        if results is not None and hasattr(self.window, "open_results"):
+            self.window.open_results(path, loaded=results)
         return True
 
     def save(self) -> bool:
@@ -232,7 +261,7 @@ class FileOps(QObject):
             self.timer.start(int(seconds * 1000))
 
     def recovery_path(self) -> Path:
-        return recovery_file(self.doc.path, self.recovery_dir)
+        return recovery_file(self.doc.path, self.recovery_dir, self.untitled_key)
 
     def autosave(self) -> Path | None:
         """Write the unsaved model to its recovery file (only when it changed since the last one)."""
@@ -260,14 +289,16 @@ class FileOps(QObject):
     def offer_recovery(self, untitled: bool = False) -> bool:
         """If a recovery file for the open model (or, with ``untitled``, for an untitled model)
         exists, ask to restore it. True if restored."""
-        p = recovery_file(None, self.recovery_dir) if untitled else self.recovery_path()
-        if not p.exists():
+        p = self._untitled_recovery() if untitled else self.recovery_path()
+        if p is None or not p.exists():
             return False
         try:
+            if p.stat().st_size > 64 * 1024 * 1024:
+                raise ValueError("larger than 64 MB")
             payload = json.loads(p.read_text(encoding="utf-8"))
             model = parse_model(payload["model"], str(p))
             when = payload.get("saved_at", "an earlier session")
-        except (OSError, ValueError, KeyError, TypeError, ModelError) as e:
+        except (OSError, ValueError, KeyError, TypeError, AttributeError, RecursionError, ModelError) as e:
             self.prompts.error("Recovery file unusable", f"Unsaved changes were kept in {p}, but that file "
                                                          f"cannot be read:\n\n{e}\n\nIt is left in place.")
             return False
@@ -280,4 +311,18 @@ class FileOps(QObject):
             p.unlink()
             return False
         self.doc.reset(model, None if untitled else self.doc.path, recovered=True)
+        if untitled and p != self.recovery_path():
+            try:
+                os.replace(p, self.recovery_path())  # this window now keeps it (another window may take another)
+            except OSError:
+                pass
         return True
+
+    def _untitled_recovery(self) -> Path | None:
+        """The newest untitled recovery file that no running window owns (None if there is none)."""
+        try:
+            found = [p for p in self.recovery_dir.glob("untitled*.recovery.json")
+                     if p.name != self.recovery_path().name and not _untitled_key_alive(p.name)]
+            return max(found, key=lambda p: p.stat().st_mtime) if found else None
+        except OSError:
+            return None

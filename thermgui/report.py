@@ -26,6 +26,7 @@ import numpy as np
 from solver import __version__
 from solver.errors import ModelError
 from solver.runfolder import FinishedRun, is_run_folder, load_run
+from solver.runstore import cut_short_runs
 from solver.fieldseries import FIELD_FILE, LEGACY_SERIES
 
 from .runresults.peakview import STATUS_WORDS, VERDICT_FILL, VERDICT_TEXT, columns, display_row, review_order
@@ -49,11 +50,17 @@ def check_results_folder(folder) -> FinishedRun:
     Incomplete (the run was cut short): frames were written but not the files a finished run
     ends with, or the last output lies before the model's duration."""
     folder = Path(folder)
-    if not folder.is_dir():
-        raise ReportError(f"{folder}: not a results folder (no such folder)")
     missing = [n for n in REQUIRED if not (folder / n).is_file()]
     started = ((folder / "field").is_dir() or (folder / FIELD_FILE).exists() or (folder / LEGACY_SERIES).exists()
                or any((folder / n).exists() for n in REQUIRED))
+    if not folder.is_dir():
+        if cut_short_runs(folder):  # a first run cut short leaves only its staging folder beside the name
+            try:
+                load_run(folder)
+            except ModelError as e:
+                raise ReportError(e.describe()) from None  # "incomplete: … cut short" (or still running)
+        kind = "a file" if folder.exists() else "no such folder"
+        raise ReportError(f"{folder}: not a results folder ({kind})")
     if missing and started:
         raise ReportError(f"{folder}: incomplete results folder (the run was cut short: {', '.join(missing)} "
                           "missing); run the model to the end, then make the report")
@@ -63,7 +70,7 @@ def check_results_folder(folder) -> FinishedRun:
     try:
         run = load_run(folder)
     except ModelError as e:
-        raise ReportError(f"{folder}: {e.describe() if hasattr(e, 'describe') else e}") from None
+        raise ReportError(e.describe()) from None  # names the folder
     if run.info.get("complete") is False:
         raise ReportError(f"{folder}: incomplete results folder (run.json says the run was cut short)")
     duration = float(run.model_dict.get("run", {}).get("duration_s", 0.0) or 0.0)
@@ -342,6 +349,7 @@ def report_context(run: FinishedRun, pictures: bool = True) -> dict:
         "name": run.folder.resolve().name, "title": model.get("title", ""), "folder": str(run.folder.resolve()),
         "made": _dt.datetime.now().strftime("%Y-%m-%d %H:%M"), "version": __version__,
         "caution": CAUTION, "warnings": list(run.info.get("warnings") or []),
+        "notice": getattr(run, "notice", None),  # e.g. a folder written before manifests
         "verdict": verdict, "n_over": n_over, "n_risk": n_risk,
         "columns": [h.replace("\n", " ") for _, h in cols], "table": table,
         "fill": VERDICT_FILL, "text": VERDICT_TEXT,
@@ -379,10 +387,13 @@ def render_report(run: FinishedRun, pictures: bool = True) -> str:
     return env.get_template("report.html").render(**report_context(run, pictures))
 
 
-def write_report(folder, out=None, pictures: bool = True) -> Path:
+def write_report(folder, out=None, pictures: bool = True, notices: list | None = None) -> Path:
     """Check ``folder``, render, and write the report to ``out`` (default: ``<folder>-report.html``
-    beside the folder) through a temporary file, so a failure leaves nothing behind."""
+    beside the folder) through a temporary file, so a failure leaves nothing behind. The folder's
+    notice (e.g. written before manifests) is shown in the report and appended to ``notices``."""
     run = check_results_folder(folder)
+    if run.notice and notices is not None:
+        notices.append(run.notice)
     out = Path(out) if out else Path(folder).resolve().with_name(Path(folder).resolve().name + "-report.html")
     html = render_report(run, pictures)
     out.parent.mkdir(parents=True, exist_ok=True)

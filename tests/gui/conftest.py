@@ -7,7 +7,6 @@ recorded and answered "cancel" instead of waiting for a click.
 from __future__ import annotations
 
 import gc
-
 import shutil
 from pathlib import Path
 

@@ -202,7 +202,9 @@ def test_run_scrub_mark_export_reopen(qtbot, tmp_path, cli_peaks, open_main_wind
     d = win.document.model_dict()
     d["run"].update(scheme="forward-euler", step_s=5.0)
     win.document.edit(d, "explicit stepping")
+    win.prompts.answers.append("yes")  # replacing the earlier results is asked first
     assert res.start_run()
+    assert win.prompts.messages[-1][0] == "ask" and "earlier run" in win.prompts.messages[-1][2]
     run_to_end(qtbot, win)
     assert res.status.message.isVisible() and "run.step_s" in res.status.message.text()
     assert (folder / "peaks.csv").read_bytes() == (cli_peaks / "peaks.csv").read_bytes()

@@ -28,7 +28,7 @@ from .chart import PartChart
 from .fieldview import FieldView, build_display
 from .messages import item_for_path
 from .peaktable import PeakTable
-from .resultfiles import ResultFiles, check_results_folder, clear_old_results
+from .resultfiles import ResultFiles, previous_run
 from .runpanel import RunStatus
 from .store import ResultsStore, results_folder_for
 from .timefmt import format_time
@@ -230,10 +230,8 @@ class ResultsController(LookInside, ResultFiles, QObject):
             return False
         model = self.window.document.model
         out_dir = self.results_folder()
-        try:
-            check_results_folder(out_dir)
-        except OSError as e:
-            self.status.show_error("The results folder cannot be prepared.", f"{out_dir}: {e.strerror or e}")
+        question = previous_run(out_dir)
+        if question and self.window.prompts.ask("Replace earlier results?", question, ("yes", "no")) != "yes":
             return False
         self.status.clear_error()
         self.status.preparing("Meshing and assembling the model…")
@@ -244,12 +242,7 @@ class ResultsController(LookInside, ResultFiles, QObject):
         hot = None if self._user_cut else likely_hot_spot(model)
         min_fraction = self.cut_slider.minimum() / 100
 
-        cleared = []
-
         def prepare(session):  # on the worker thread: the big-mesh work that would stall the window
-            if not cleared:  # once, before the first mesh level (later levels write into the folder)
-                clear_old_results(out_dir)  # only now: a refused run leaves the earlier results alone
-                cleared.append(True)
             store = ResultsStore.for_problem(session.problem, session.out_dir)
             use, auto = cut, None
             bounds = store.part_bounds_mm.get(hot[0]) if hot is not None else None
@@ -260,7 +253,8 @@ class ResultsController(LookInside, ResultFiles, QObject):
                     use = ("z", found[0])
             return store, build_display(store.points_mm, store.tets, use), auto
 
-        self.worker = RunWorker(model.model_copy(deep=True), out_dir, prepare=prepare)
+        # force: the run writes beside the user's own files in the folder and never deletes them
+        self.worker = RunWorker(model.model_copy(deep=True), out_dir, prepare=prepare, force=True)
         self.worker.prepared.connect(self._on_prepared)
         self.worker.output.connect(self._on_output)
         self.worker.preview.connect(self._on_preview)

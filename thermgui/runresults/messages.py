@@ -25,7 +25,7 @@ def item_for_path(path: str) -> tuple[str, int] | None:
 def describe_error(err: BaseException) -> tuple[str, str]:
     """(headline, details) for an error raised while preparing or running a study."""
     if isinstance(err, ModelError):
-        lines = [f"{p}: {m}" if p else m for p, m in err.issues]
+        lines = [f"{p}: {m}" if p and p != "--out" else m for p, m in err.issues]  # --out: the folder is named
         return "The model cannot be run as it is.", "\n".join(lines)
     if isinstance(err, Cancelled):
         return "Run stopped.", str(err)

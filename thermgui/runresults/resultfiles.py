@@ -6,7 +6,6 @@ uses the controller's ``store``, ``view``, ``status``, ``table``, ``timeline`` a
 """
 from __future__ import annotations
 
-import shutil
 from pathlib import Path
 
 from PySide6.QtWidgets import QFileDialog
@@ -14,29 +13,35 @@ from PySide6.QtWidgets import QFileDialog
 from solver.errors import ModelError
 from solver.fieldseries import FIELD_FILE
 from solver.runfolder import is_run_folder, load_run
+from solver.runstore import foreign_files
 
 from .store import ResultsStore, results_folder_for
 
 
 class ResultFiles:
-    def open_results(self, folder):
-        """Show a finished run from its folder without solving; returns the FinishedRun (None on error)."""
+    def open_results(self, folder, loaded=None):
+        """Show a finished run from its folder without solving; returns the FinishedRun (None on error).
+        ``loaded``: (FinishedRun, ResultsStore) already read by the caller."""
         if self.running:
             self._status_bar("A run is in progress; stop it before opening other results.")
             return None
         try:
-            run = load_run(folder)
+            run, store = loaded if loaded is not None else (None, None)
+            if run is None:
+                run = load_run(folder)
             if not run.has_fields:
                 self.status.show_error("These results have no temperature field to show.",
                                        f"{folder}: the run was solved without fields (--fields none); "
                                        "peaks.csv and history.csv in the folder hold its table and curves.")
                 return None
-            store = ResultsStore.from_finished(run)
+            if store is None:
+                store = ResultsStore.from_finished(run)
         except ModelError as e:
             self.status.show_error("These results cannot be opened.", e.describe())
             return None
-        except (OSError, ValueError, KeyError, IndexError) as e:
-            self.status.show_error("These results cannot be opened.", f"{folder}: damaged or incomplete ({e})")
+        except (Exception, RecursionError) as e:  # damaged in a way no check foresaw: shown, never a traceback
+            self.status.show_error("These results cannot be opened.",
+                                   f"{folder}: damaged or incomplete ({type(e).__name__}: {e})")
             return None
         self.store = store
         self._results_model = run.model_dict
@@ -56,6 +61,9 @@ class ResultFiles:
         self.status.started(f"Results of {Path(folder).name}", store.duration_s)
         self.status.finished(f"Opened {store.n_frames} outputs from {Path(folder).name} (not solved again)"
                              + cut_note)
+        if getattr(run, "notice", None):  # e.g. written before manifests: stays in the run panel
+            self.status.show_note(run.notice)
+            self._status_bar(f"Note: {run.notice}")
         self.status.detail.setToolTip(str(folder))
         self.timeline.blockSignals(True)
         self.timeline.set_times(store.times, store.duration_s)
@@ -75,7 +83,7 @@ class ResultFiles:
             return False
         try:
             same = load_run(folder).model_dict == self.window.document.model.to_json_dict()
-        except (ModelError, OSError, ValueError):
+        except (Exception, RecursionError):  # incomplete, mixed or damaged: not opened beside the model
             return False
         if not same:
             self.status.detail.setText(f"{folder.name} holds results of an earlier version of this model; "
@@ -175,17 +183,16 @@ def _in_temp(folder) -> bool:
         return False
 
 
-def check_results_folder(folder: Path) -> None:
-    """OSError unless ``folder`` is absent, empty, or holds results of ours (safe to replace)."""
-    if not folder.exists():
-        return
-    ours = is_run_folder(folder) or (folder / FIELD_FILE).is_file() or (folder / "field").is_dir()  # a stopped run's
-    if not folder.is_dir() or not (ours or not any(folder.iterdir())):
-        raise OSError(f"{folder} exists and does not look like a results folder; move it away first")
+def previous_run(folder: Path) -> str | None:
+    """The question to ask before a Run replaces an earlier run in ``folder``; None if there is none.
 
-
-def clear_old_results(folder: Path) -> None:
-    """Remove an earlier run's files from ``folder`` (only if it holds results of ours)."""
-    check_results_folder(folder)
-    if folder.exists():
-        shutil.rmtree(folder)
+    The run never empties the folder: it replaces only the files the earlier run listed (its
+    manifest, or run.json and field.pvd for folders written before manifests) and keeps every other
+    file (solver/runstore.py)."""
+    folder = Path(folder)
+    if not folder.is_dir() or not ((folder / "manifest.json").is_file() or (folder / "run.json").is_file()):
+        return None
+    kept = foreign_files(folder)
+    note = (f"\n\nYour own files there are kept: {', '.join(kept[:3])}{' …' if len(kept) > 3 else ''}."
+            if kept else "")
+    return f"{folder} holds the results of an earlier run. Replace them with the new run?{note}"

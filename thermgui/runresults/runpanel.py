@@ -119,12 +119,20 @@ class RunStatus(QWidget):
         self.bar.setValue(0)
         self.bar.setFormat("not run")
         self.detail.setText(headline)
+        self.message.setStyleSheet(ERROR_STYLE)
         self.message.setText(f"<b>{_html(headline)}</b><br>{_html(details).replace(chr(10), '<br>')}")
+        self.message.show()
+
+    def show_note(self, text: str) -> None:
+        """A note that stays in the panel until the next run or error (not an error: caution colours)."""
+        self.message.setStyleSheet(CAUTION_STYLE)
+        self.message.setText(f"<b>Note:</b> {_html(text)}")
         self.message.show()
 
     def clear_error(self) -> None:
         self.message.hide()
         self.message.clear()
+        self.message.setStyleSheet(ERROR_STYLE)
 
 
 def _html(s: str) -> str:

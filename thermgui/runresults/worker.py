@@ -42,8 +42,10 @@ class RunWorker(QObject):
     stopped = Signal(str)
     done = Signal()
 
-    def __init__(self, model, out_dir, prepare=None, preview_every_s: float = 0.3, progress_every_s: float = 2.0):
+    def __init__(self, model, out_dir, prepare=None, preview_every_s: float = 0.3, progress_every_s: float = 2.0,
+                 force: bool = False):
         super().__init__()
+        self.force = force  # write beside files in out_dir that no run wrote (they are kept)
         self.prepare = prepare
         self.model = model
         self.out_dir = out_dir
@@ -64,9 +66,13 @@ class RunWorker(QObject):
 
     def _run(self) -> None:
         try:
-            session = RunSession(self.model, self.out_dir, cancel=self._stop.is_set)
+            session = None
+            session = RunSession(self.model, self.out_dir, cancel=self._stop.is_set, force=self.force,
+                                 frames_in_memory=True)  # the window keeps every frame
             extra = self.prepare(session) if self.prepare is not None else None
-        except Exception as e:  # ModelError (invalid, unstable step, mesh too large), MemoryError, ...
+        except Exception as e:  # ModelError (invalid, unstable step, mesh too large, folder in use), MemoryError, ...
+            if session is not None:
+                session.abort()  # release the results folder's lock and staging folder
             self.failed.emit(*describe_error(e), list(getattr(e, "issues", [])))
             return
         self.prepared.emit(session, extra)
