@@ -178,3 +178,95 @@ def test_whatif_refused_for_radiation(qtbot, tmp_path, open_main_window):
     win, _ = run_and_open_panel(qtbot, open_main_window, d, tmp_path)
     msg = win.results.whatif.panel.message
     assert msg.isVisible() and "convection[1].emissivity" in msg.text() and "radiation" in msg.text()
+
+
+# ---------------------------------------------------------------- Zth view
+def lumped_block() -> dict:
+    from modelkit import model_dict, part
+
+    mat = {"conductivity": 1.0e4, "density": 2000.0, "specific_heat": 900.0}
+    return model_dict([part("block", "fast", (0, 0, 0), (20, 10, 5), rated_c=80.0)], materials={"fast": mat},
+                      heat_loads=[{"part": "block", "profile": {"type": "constant", "value": 1.0}}],
+                      convection=[{"name": "all", "part": "block", "side": "exposed", "h": 12.0}],
+                      cell_mm=2.5, mass="lumped")
+
+
+def compute_zth_in_app(qtbot, win):
+    zc = win.results.zth
+    zc.action.trigger()  # Run ▸ Thermal Impedance (Zth)…
+    assert zc.window.isVisible()
+    qtbot.waitUntil(lambda: zc.answer is not None or zc.window.message.isVisible(), timeout=120000)
+    return zc
+
+
+def test_zth_view_lumped_body_against_the_lumped_capacitance_solution(qtbot, tmp_path, open_main_window):
+    """A very conductive block (Bi ~ 1e-6) cooled on every face: Zth(t) = R(1 − e^{−t/τ}), R = 1/(hA),
+    τ = ρcV/(hA) (lumped capacitance; Incropera & DeWitt, Fundamentals of Heat and Mass Transfer,
+    6th ed., §5.1). The chart's curve and the table's Rth are checked against it."""
+    import numpy as np
+
+    path = tmp_path / "block.json"
+    save_model(parse_model(lumped_block()), path)
+    win = open_main_window(path)
+    zc = compute_zth_in_app(qtbot, win)
+    area = 2 * (20 * 10 + 20 * 5 + 10 * 5) * 1e-6
+    r_ref, tau_ref = 1.0 / (12.0 * area), 2000.0 * 900.0 * 20 * 10 * 5 * 1e-9 / (12.0 * area)
+    t, z = zc.window.curves[("block", "block")].getData()
+    assert zc.window.plot.plotItem.ctrl.logXCheck.isChecked()  # log time axis
+    t = 10 ** np.asarray(t)  # pyqtgraph hands back log10 of x in log mode
+    ref = r_ref * -np.expm1(-t / tau_ref)
+    assert t[-1] / t[0] >= 1e4
+    assert float(np.max(np.abs(z - ref) / np.maximum(ref, 0.01 * r_ref))) < 1e-4
+    row = zc.window.shown_rows()[0]
+    assert row[:2] == ["block", "block"] and row[2] == f"{r_ref:.3g}" and row[3] == "1"
+
+
+def test_zth_view_matches_the_command_and_exports_its_files(qtbot, tmp_path, open_main_window):
+    from solver.answers_cli import zth_to_folder
+
+    d = chip_on_plate()
+    d["parts"].append({"name": "chip2", "material": "mould-compound", "origin_mm": [3, 3, 3],
+                       "size_mm": [6, 6, 2], "rated_c": 60.0})
+    d["heat_loads"].append({"part": "chip2", "profile": {"type": "constant", "value": 0.5}})
+    path = tmp_path / "two.json"
+    save_model(parse_model(d), path)
+    win = open_main_window(path)
+    zc = compute_zth_in_app(qtbot, win)
+    assert zth_to_folder(path, tmp_path / "cli", quiet=True) == 0
+    with open(tmp_path / "cli" / "zth.csv") as f:
+        cli = list(csv.DictReader(f))
+    assert len(zc.window.curves) == 6  # plate, chip, chip2 (rated) x two heated parts
+    for (part, heated), curve in zc.window.curves.items():
+        _, z = curve.getData()
+        want = [float(r[f"zth:{part}:{heated}"]) for r in cli]
+        assert list(z) == pytest.approx(want, rel=1e-5)
+    rows = {(r[0], r[1]): r for r in zc.window.shown_rows()}
+    with open(tmp_path / "cli" / "foster.csv") as f:
+        stages = {}
+        for r in csv.DictReader(f):
+            stages[(r["part"], r["heated_part"])] = stages.get((r["part"], r["heated_part"]), 0) + 1
+    assert {k: int(v[3]) for k, v in rows.items()} == stages
+    win.viewport.plotter.render()
+    zc.window.resize(1000, 520)
+    qtbot.wait(50)
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    zc.window.grab().save(str(ARTIFACTS / "zth-window.png"))
+    # Export files… writes the command's files
+    win.prompts.paths.append(str(tmp_path / "exported"))
+    qtbot.mouseClick(zc.window.export_button, Qt.LeftButton)
+    for name in ("zth.csv", "foster.csv", "cauer.csv"):
+        assert (tmp_path / "exported" / name).read_bytes() == (tmp_path / "cli" / name).read_bytes(), name
+    cli_subs = sorted(p.name for p in (tmp_path / "cli" / "spice").iterdir())
+    assert cli_subs and sorted(p.name for p in (tmp_path / "exported" / "spice").iterdir()) == cli_subs
+    assert "Wrote" in zc.window.state.text()
+
+
+def test_zth_view_refuses_a_model_without_a_path_to_ambient(qtbot, tmp_path, open_main_window):
+    d = chip_on_plate()
+    d["convection"] = []
+    path = tmp_path / "closed.json"
+    save_model(parse_model(d), path)
+    win = open_main_window(path)
+    zc = compute_zth_in_app(qtbot, win)
+    assert zc.answer is None and "convection" in zc.window.message.text()
+    assert not zc.window.export_button.isEnabled()

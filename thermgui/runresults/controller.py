@@ -36,6 +36,7 @@ from .temprun import STALE_TEMP_S, TEMP_PREFIX, clean_stale_temp_runs  # noqa: F
 from .timeline import TimelineBar
 from .whatifcontrol import WhatIfControl
 from .worker import RunWorker, start_worker
+from .zthview import ZthControl
 
 LIVE_REDRAW_MS = 300  # shortest pause between live redraws while a run streams frames
 LIVE_DUTY = 0.05  # live redraws aim at this share of the wall time (the solve shares the CPU) ...
@@ -63,6 +64,7 @@ class ResultsController(LookInside, ResultFiles, QObject):
         self._build_actions()
         self._session = None  # the running session (its last mesh level is the one reported)
         self.whatif = WhatIfControl(self)
+        self.zth = ZthControl(self)
         self._redraw = QTimer(self)
         self._redraw.setSingleShot(True)
         self._redraw.setInterval(LIVE_REDRAW_MS)
@@ -296,6 +298,7 @@ class ResultsController(LookInside, ResultFiles, QObject):
             self.wait()
             self._on_thread_finished()
         self.whatif.shutdown()
+        self.zth.shutdown()
         self.remove_temp_folders()
 
     def _on_prepared(self, session, prepared) -> None:

@@ -208,7 +208,7 @@ class WhatIfControl(QObject):
             times, pmax, _ = rec.history_arrays()
             return gen, scales, offset_k, [r.as_csv_row() for r in rec.peak_rows()], times, pmax
 
-        self._eval = Job(work, self)
+        self._eval = Job(work, self, short=True)
         self._eval.worker.succeeded.connect(self._on_answer)
         self._eval.worker.failed.connect(self._on_eval_failed)
         self._eval.finished.connect(self._next)
