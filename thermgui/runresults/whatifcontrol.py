@@ -221,7 +221,7 @@ class WhatIfControl(QObject):
         if self.panel.is_default():
             return
         self.answer = (scales, offset_k, rows, times, pmax)
-        self.active = True
+        was_active, self.active = self.active, True
         res = self.results
         names = [hl.part for hl in self.problem.model.heat_loads]
         band = max((res.store.error_k(n) for n in res.store.part_names), default=0.0) if res.store else 0.0
@@ -232,7 +232,8 @@ class WhatIfControl(QObject):
         res.table.set_rows(rows, res.store.duration_s)
         res.fit_table()
         res._update_chart()
-        res.refresh_caption()
+        if not was_active:  # the view's caption says so once (a 3D repaint costs on a big mesh)
+            res.refresh_caption()
 
     def _on_eval_failed(self, headline: str, details: str, issues) -> None:
         self.panel.show_message(f"{headline}\n{details}")
