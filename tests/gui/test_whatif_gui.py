@@ -270,3 +270,49 @@ def test_zth_view_refuses_a_model_without_a_path_to_ambient(qtbot, tmp_path, ope
     zc = compute_zth_in_app(qtbot, win)
     assert zc.answer is None and "convection" in zc.window.message.text()
     assert not zc.window.export_button.isEnabled()
+
+
+# ---------------------------------------------------------------- sweep from the app
+def test_sweep_from_the_app_shows_the_cases_of_the_command(qtbot, tmp_path, open_main_window, sample_copy):
+    """Run ▸ Run Sweep File… on a LocalCluster (one worker): the table shown is cases.csv, equal to
+    the serial run of the same sweep in this process (``thermgui sweep``'s own code)."""
+    import json
+
+    from solver.sweep import sweep_to_folder
+
+    save_model(parse_model(chip_on_plate()), tmp_path / "chip.json")
+    sweep = tmp_path / "corners.json"
+    sweep.write_text(json.dumps({"format": "thermgui-sweep", "version": 1, "model": "chip.json", "variables": [
+        {"field": "heat_loads[0].scale", "values": [1.0, 1.3]}, {"field": "ambient_offset_k", "values": [0, 5]}]}))
+    win = open_main_window(sample_copy)
+    sc = win.results.sweep
+    sc.workers = 1
+    win.prompts.paths.append(str(sweep))
+    sc.action.trigger()
+    assert sc.window.isVisible()
+    qtbot.waitUntil(lambda: sc.folder is not None or sc.window.message.isVisible(), timeout=240000)
+    assert sc.folder == tmp_path / "corners-cases"
+    assert sweep_to_folder(sweep, tmp_path / "serial", serial=True, quiet=True) == 0
+    with open(tmp_path / "serial" / "cases.csv", newline="") as f:
+        serial = list(csv.reader(f))
+    shown = sc.window.shown_rows()
+    status = serial[0].index("status")
+    words = {"over": "OVER", "at-risk": "AT RISK", "ok": "ok", "unrated": "unrated"}
+    assert len(shown) == len(serial) - 1 == 4 * 3  # 4 cases x 3 parts
+    assert shown == [[words[c] if i == status else c for i, c in enumerate(r)] for r in serial[1:]]
+    assert "Worst case per part" in sc.window.worst.text()
+
+
+def test_sweep_from_the_app_refuses_a_field_that_names_nothing(qtbot, tmp_path, open_main_window, sample_copy):
+    import json
+
+    save_model(parse_model(chip_on_plate()), tmp_path / "chip.json")
+    sweep = tmp_path / "bad.json"
+    sweep.write_text(json.dumps({"format": "thermgui-sweep", "version": 1, "model": "chip.json",
+                                 "variables": [{"field": "parts[9].size_mm[0]", "values": [1, 2]}]}))
+    win = open_main_window(sample_copy)
+    sc = win.results.sweep
+    assert sc.start(sweep)
+    qtbot.waitUntil(lambda: sc.window.message.isVisible(), timeout=60000)
+    assert "variables[0].field" in sc.window.message.text() and sc.folder is None
+    assert not (tmp_path / "bad-cases").exists()

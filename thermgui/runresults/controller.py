@@ -31,6 +31,7 @@ from .peaktable import PeakTable
 from .resultfiles import ResultFiles, previous_run
 from .runpanel import RunStatus
 from .store import ResultsStore, results_folder_for
+from .sweepview import SweepControl
 from .timefmt import format_time
 from .temprun import STALE_TEMP_S, TEMP_PREFIX, clean_stale_temp_runs  # noqa: F401 (re-exported)
 from .timeline import TimelineBar
@@ -65,6 +66,7 @@ class ResultsController(LookInside, ResultFiles, QObject):
         self._session = None  # the running session (its last mesh level is the one reported)
         self.whatif = WhatIfControl(self)
         self.zth = ZthControl(self)
+        self.sweep = SweepControl(self)
         self._redraw = QTimer(self)
         self._redraw.setSingleShot(True)
         self._redraw.setInterval(LIVE_REDRAW_MS)
@@ -299,6 +301,7 @@ class ResultsController(LookInside, ResultFiles, QObject):
             self._on_thread_finished()
         self.whatif.shutdown()
         self.zth.shutdown()
+        self.sweep.shutdown()
         self.remove_temp_folders()
 
     def _on_prepared(self, session, prepared) -> None:
