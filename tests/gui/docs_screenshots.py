@@ -1,4 +1,4 @@
-"""Regenerate docs/screenshot-editing.png, screenshot-results.png and screenshot-whatif.png from a clean start.
+"""Regenerate docs/screenshot-editing.png and docs/screenshot-results.png from a clean start.
 
     python3 tests/gui/docs_screenshots.py
 
@@ -6,8 +6,7 @@ Each picture comes from the app started as a user starts it (tests/gui/start_as_
 fresh HOME in a temporary folder (paths under it show as ``~/...``) on its own 1366x768 Xvfb
 screen: the editing view of the bundled radio box with the radio module selected, and a finished
 run of the bundled power stage saved to ``~/Documents/power-stage/``, shown at the peak of the
-part that goes over its rating; then the same run with Q2's load at 0.8 and the ambient 5 K
-higher in the what-if panel.
+part that goes over its rating.
 The script refuses to write a picture if the app showed an error or a message box.
 """
 from __future__ import annotations
@@ -51,7 +50,3 @@ if __name__ == "__main__":
     info = shoot(docs / "screenshot-results.png", "--open", str(ROOT / "samples" / "compact_power_stage.json"),
                  "--save-as", "Documents/power-stage/compact_power_stage.json", "--run", "--at-peak", "Q2 die")
     print("results:", info["title"], info["status_line"])
-    info = shoot(docs / "screenshot-whatif.png", "--open", str(ROOT / "samples" / "compact_power_stage.json"),
-                 "--save-as", "Documents/power-stage/compact_power_stage.json", "--run", "--at-peak", "Q2 die",
-                 "--whatif", "Q2 die=0.8,offset=5")
-    print("what-if:", info["title"], info["status_line"])

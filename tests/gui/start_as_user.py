@@ -11,8 +11,6 @@ Options (also used to make the docs' screenshots, see docs/workbench.md):
   --select PART   select that part in the list before looking
   --run           press Run and wait for the run to finish before looking
   --at-peak PART  after the run, move the slider to the output nearest that part's peak
-  --whatif LOAD=F[,LOAD=F...][,offset=K]   after the run, open the what-if panel, type these
-                  factors (by heat load part name) and ambient offset, and look once answered
 """
 from __future__ import annotations
 
@@ -32,7 +30,6 @@ def _option(name):
 
 
 OPEN, SAVE_AS, SELECT, AT_PEAK = _option("--open"), _option("--save-as"), _option("--select"), _option("--at-peak")
-WHATIF = _option("--whatif")
 boxes = []
 
 
@@ -104,30 +101,11 @@ def watch():
         look(win)
         win.close()
 
-    def whatif():
-        wi = win.results.whatif
-        if wi.units is None:
-            if not wi.dock.isVisible():
-                wi.action.trigger()
-            QTimer.singleShot(300, whatif)
-            return
-        loads = [hl.part for hl in win.document.model.heat_loads]
-        for spec in WHATIF.split(","):
-            name, _, value = spec.partition("=")
-            box = wi.panel.offset if name == "offset" else wi.panel.factors[loads.index(name)]
-            box.setValue(float(value))
-        wait_answer()
-
-    def wait_answer():
-        wi = win.results.whatif
-        busy = wi._eval is not None and wi._eval.running
-        QTimer.singleShot(300, wait_answer if busy or not wi.active else finish)
-
     def wait_run():
         if win.results.running or win.results.store is None or not win.results.store.complete:
             QTimer.singleShot(300, wait_run)
         else:
-            QTimer.singleShot(800, whatif if WHATIF else finish)
+            QTimer.singleShot(800, finish)
 
     if DO_RUN:
         QTimer.singleShot(1000, lambda: (win.results.run_action.trigger(), QTimer.singleShot(500, wait_run)))
