@@ -301,6 +301,8 @@ def test_sweep_from_the_app_shows_the_cases_of_the_command(qtbot, tmp_path, open
     assert len(shown) == len(serial) - 1 == 4 * 3  # 4 cases x 3 parts
     assert shown == [[words[c] if i == status else c for i, c in enumerate(r)] for r in serial[1:]]
     assert "Worst case per part" in sc.window.worst.text()
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    sc.window.grab().save(str(ARTIFACTS / "sweep-window.png"))
 
 
 def test_sweep_from_the_app_refuses_a_field_that_names_nothing(qtbot, tmp_path, open_main_window, sample_copy):

@@ -65,6 +65,18 @@ def read_table(path) -> tuple[list[str], list[list[str]]]:
     return (rows[0], rows[1:]) if rows else ([], [])
 
 
+def worst_text(row: dict) -> str:
+    """``chip: case 3, 60.3 °C, margin -20.3 K, OVER`` from a worst.csv row."""
+    def num(key, fmt):
+        try:
+            return fmt.format(float(row.get(key, "")))
+        except ValueError:
+            return ""
+    bits = [f"case {row.get('worst_case', '')}", num("peak_c", "{:.1f} °C"), num("margin_k", "margin {:+.1f} K"),
+            STATUS_WORDS.get(row.get("status", ""), row.get("status", ""))]
+    return f"{row.get('part', '')}: " + ", ".join(b for b in bits if b)
+
+
 class SweepWindow(QWidget):
     def __init__(self, parent=None):
         super().__init__(parent, Qt.Window)
@@ -117,10 +129,11 @@ class SweepWindow(QWidget):
                 self.table.setItem(r, c, item)
         w_header, w_rows = read_table(folder / "worst.csv")
         if w_rows:
-            self.worst.setText("<b>Worst case per part</b> (worst.csv): " + "; ".join(
-                ", ".join(f"{h} {v}" for h, v in zip(w_header, row) if v) for row in w_rows))
+            self.worst.setText("<b>Worst case per part</b> (worst.csv): "
+                               + "; ".join(worst_text(dict(zip(w_header, row))) for row in w_rows))
         self.stop_button.hide()
-        self.state.setText(f"{len(rows)} rows in {folder / 'cases.csv'} (also worst.csv, margin.png).")
+        self.state.setText(f"{len(rows)} rows in {folder.name}/cases.csv (also worst.csv, margin.png)")
+        self.state.setToolTip(str(folder))
 
     def shown_rows(self) -> list[list[str]]:
         return [[self.table.item(r, c).text() for c in range(self.table.columnCount())]
