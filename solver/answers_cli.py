@@ -70,9 +70,29 @@ def run_command(args, stream=None, err=None) -> int:
                             linear_solver=args.linear_solver, stream=stream, err=err)
 
 
+def fit_networks(result, stages=None, passive: bool = False, warn=None):
+    """Foster fit of every pair of a :class:`~solver.zth.ZthResult`, and the Cauer ladder of each
+    self term with a non-negative fit: ``(fits, cauers)`` keyed by ``(a, j)`` (cauer None where there
+    is none; ``warn(message)`` says why)."""
+    from .foster import fit_foster, foster_to_cauer
+
+    fits, cauers = {}, {}
+    for a, j, part, heated in result.pairs():
+        fit = fit_foster(result.times, result.zth[a, j], stages=stages, passive=passive)
+        fits[(a, j)] = fit
+        cauers[(a, j)] = None
+        if part == heated and not fit.signed:
+            try:
+                cauers[(a, j)] = foster_to_cauer(fit)
+            except ValueError as e:
+                if warn is not None:
+                    warn(f"no Cauer ladder for {part!r}: {e}")
+    return fits, cauers
+
+
 def zth_to_folder(model_path, out_dir, parts=None, stages=None, quiet=False, linear_solver="auto",
                   stream=None, err=None, passive: bool = False) -> int:
-    from .foster import MAX_STAGES, fit_foster, foster_to_cauer
+    from .foster import MAX_STAGES
     from .model import load_model
     from .problem import build_problem
     from .zth import compute_zth
@@ -98,16 +118,7 @@ def zth_to_folder(model_path, out_dir, parts=None, stages=None, quiet=False, lin
         return 1
     for w in problem.warnings:
         say(f"warning: {w}")
-    fits, cauers = {}, {}
-    for a, j, part, heated in result.pairs():
-        fit = fit_foster(result.times, result.zth[a, j], stages=stages, passive=passive)
-        fits[(a, j)] = fit
-        cauers[(a, j)] = None
-        if part == heated and not fit.signed:
-            try:
-                cauers[(a, j)] = foster_to_cauer(fit)
-            except ValueError as e:
-                say(f"warning: no Cauer ladder for {part!r}: {e}")
+    fits, cauers = fit_networks(result, stages=stages, passive=passive, warn=lambda m: say(f"warning: {m}"))
     try:
         write_zth_outputs(out_dir, result, fits, cauers, model.title)
     except OSError as e:

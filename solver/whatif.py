@@ -112,7 +112,30 @@ def _components(problem, modal: ModalSystem, grid: SampleGrid, v: np.ndarray, n_
                          grid.times, grid.is_output)
 
 
-def compute_unit_responses(problem, method: str = "pardiso", tol_k: float = TOL_K, progress=None) -> UnitResponses:
+def check_whatif(model) -> None:
+    """ModelError naming the field where a what-if by superposition does not hold: radiation
+    (:func:`solver.unitresponse.require_linear`, and whatever nonlinearity it refuses), and a
+    settled cycle (``run.periodic``: its start state depends on the loads, so it cannot be kept)."""
+    require_linear(model)
+    if getattr(model.run, "periodic", False):
+        raise ModelError(("run.periodic", "a settled cycle starts from a state that depends on the loads, so "
+                                          "scaled loads cannot be superposed on it; set it to false for a what-if"))
+
+
+def prepare_unit_responses(problem, linear_solver: str = "auto", progress=None, cancel=None) -> UnitResponses:
+    """:func:`compute_unit_responses` with the linear solver the run would choose for this size
+    (``auto``: PARDISO in double precision while it fits, else multigrid). ``cancel()`` → True
+    stops before the next basis block (:class:`~solver.errors.Cancelled`)."""
+    from .linsolve import choose_method
+
+    check_whatif(problem.model)
+    method = choose_method(problem.n_nodes, linear_solver).method
+    return compute_unit_responses(problem, "pardiso" if method == "pardiso-single" else method,
+                                  progress=progress, cancel=cancel)
+
+
+def compute_unit_responses(problem, method: str = "pardiso", tol_k: float = TOL_K, progress=None,
+                           cancel=None) -> UnitResponses:
     """Grow a basis from the model's load patterns and integrate every component (module doc).
 
     Each check compares two successive bases on every component at every sample on watched
@@ -129,7 +152,8 @@ def compute_unit_responses(problem, method: str = "pardiso", tol_k: float = TOL_
     coarse = np.unique(np.concatenate([np.flatnonzero(grid.is_output),
                                        np.linspace(0, n_s - 1, min(n_s, 60)).round().astype(int)]))
     shift = 1.0 / math.sqrt(float(run.step_s) * float(run.duration_s))
-    basis = KrylovBasis(problem, shift, method=method, max_columns=int(min(256, 1.5e9 // (8 * problem.n_nodes))))
+    basis = KrylovBasis(problem, shift, method=method, cancel=cancel,
+                        max_columns=int(min(256, 1.5e9 // (8 * problem.n_nodes))))
     proj = ProjectedRun(problem, basis, grid)
     prev, out, watched = None, None, None
     try:
@@ -208,11 +232,33 @@ class _Event:
     elapsed_s: float = 0.0
 
 
+def _hottest(problem, ur: UnitResponses, q: np.ndarray, index: np.ndarray) -> np.ndarray:
+    """Node ids that are some part's maximum at one of the samples ``index`` (as
+    :func:`solver.reduced.hottest_nodes`), with each part's rows of the basis gathered once per
+    unit responses and kept in single precision (a what-if is evaluated many times on the same
+    basis). The search is in float32 (twice as fast; a node within about 1e-5 K of the hottest may
+    be chosen instead); the values at the chosen nodes are then computed in double precision."""
+    key = (id(problem), ur.v.shape)
+    cached = getattr(ur, "_part_rows", None)
+    if cached is None or cached[0] != key:
+        pn = problem.part_nodes
+        rows = []
+        for o, c in zip(pn.offsets, pn.counts):
+            if c:
+                ids = pn.index[o:o + c]
+                rows.append((ids, np.ascontiguousarray(ur.v[ids].T, dtype=np.float32)))
+        cached = ur._part_rows = (key, rows)
+    qs = np.ascontiguousarray(q[:, index].T, dtype=np.float32)  # (samples, r)
+    found = [ids[np.argmax(qs @ vpt, axis=1)] for ids, vpt in cached[1]]
+    return np.unique(np.concatenate(found)) if found else np.zeros(0, dtype=np.int64)
+
+
 def evaluate(problem, ur: UnitResponses, scales, ambient_offset: float = 0.0):
     """RunRecorder of the what-if case: peaks, first crossings and history at output times.
 
     Only candidate nodes are evaluated at every sample: each part's hottest node at every output
-    time and at 60 spread samples (found exactly over all nodes there), plus the probes' nodes.
+    time and at 60 spread samples (found over all nodes there, to float32 rounding), plus the
+    probes' nodes.
     The part maxima at output times are therefore exact for the basis; between them they are the
     maxima over the candidates (as in a reduced run). Part means are not evaluated (NaN)."""
     from .results import RunRecorder
@@ -222,7 +268,7 @@ def evaluate(problem, ur: UnitResponses, scales, ambient_offset: float = 0.0):
     n_s = len(ur.times)
     coarse = np.unique(np.concatenate([np.flatnonzero(ur.is_output),
                                        np.linspace(0, n_s - 1, min(n_s, 60)).round().astype(int)]))
-    nodes = np.union1d(hottest_nodes(problem, v, q, coarse), np.unique(problem.probes.indices))
+    nodes = np.union1d(_hottest(problem, ur, q, coarse), np.unique(problem.probes.indices))
     vals = v[nodes] @ q  # (candidates, samples)
     cand = candidate_part_maxima(problem, vals, nodes)
     grid = type("Samples", (), {"is_output": ur.is_output})()
@@ -270,7 +316,6 @@ def whatif_to_folder(model_path, out_dir, scale_specs, ambient_offset=0.0, quiet
                      stream=None, err=None) -> int:
     from .answers_cli import CAUTION
     from .cli import format_summary
-    from .linsolve import choose_method
     from .model import load_model
     from .problem import build_problem
     from .writers import write_history_csv, write_peaks_csv
@@ -283,7 +328,7 @@ def whatif_to_folder(model_path, out_dir, scale_specs, ambient_offset=0.0, quiet
         if not math.isfinite(ambient_offset):
             raise ModelError(("--ambient-offset", "must be a finite number of kelvin"))
         model = load_model(model_path)
-        require_linear(model)
+        check_whatif(model)
         scales = parse_scales(model, scale_specs)
         problem = build_problem(model)
     except ModelError as e:
@@ -296,9 +341,7 @@ def whatif_to_folder(model_path, out_dir, scale_specs, ambient_offset=0.0, quiet
     try:
         if ur is None:
             say(f"{model_path}: {problem.n_nodes:,} nodes; computing unit responses")
-            method = choose_method(problem.n_nodes, linear_solver).method
-            ur = compute_unit_responses(problem, "pardiso" if method == "pardiso-single" else method,
-                                        progress=lambda m: say("  " + m))
+            ur = prepare_unit_responses(problem, linear_solver, progress=lambda m: say("  " + m))
             out.mkdir(parents=True, exist_ok=True)
             ur.save(cache, digest)
         else:

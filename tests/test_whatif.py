@@ -103,3 +103,19 @@ def test_superposition_refused_with_radiation():
         require_linear(model)
     assert e.value.first_path == "convection[1].emissivity"
     require_linear(SimpleNamespace(convection=[SimpleNamespace(emissivity=0.0)]))  # no radiation: fine
+
+
+def test_whatif_refused_for_a_settled_cycle(tmp_path, capsys):
+    """run.periodic: the settled cycle starts from a state that depends on the loads, so scaled loads
+    cannot be superposed on it: exit 2 naming the field, nothing written (common practice, no source:
+    the start state d0 = (I - Φ(P))⁻¹ g is itself linear in the loads, so keeping it is wrong)."""
+    d = base_model()
+    d["heat_loads"] = d["heat_loads"][:1]
+    d["convection"][1].pop("ambient_c")
+    d["run"]["periodic"] = True
+    path = tmp_path / "m.json"
+    path.write_text(json.dumps(d))
+    solver.parse_model(d)  # a valid model
+    assert whatif_to_folder(path, tmp_path / "o", ["chip=1.2"], 0.0, quiet=True) == 2
+    assert "run.periodic" in capsys.readouterr().err
+    assert not (tmp_path / "o").exists()

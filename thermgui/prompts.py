@@ -57,3 +57,7 @@ class DialogPrompts:
         if path and suffix and not path.lower().endswith(suffix):
             path += suffix
         return path
+
+    def folder_path(self, title: str, start: str = "") -> str:
+        """A folder to write into (``start``: where the dialog opens)."""
+        return QFileDialog.getExistingDirectory(self.parent, title, start)

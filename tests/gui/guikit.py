@@ -30,7 +30,7 @@ class ScriptedPrompts:
         self.messages.append(("path", title, start))
         return self.paths.pop(0) if self.paths else ""
 
-    open_path = save_path = image_path = _path
+    open_path = save_path = image_path = folder_path = _path
 
     def file_path(self, title, start="", filter_text="", suffix=""):
         return self._path(title, start)

@@ -39,6 +39,8 @@ class PartChart(pg.PlotWidget):
         self.limits: dict[str, pg.InfiniteLine] = {}  # part -> its limit line (shared by equal ratings)
         self.limit_lines: dict[float, pg.InfiniteLine] = {}  # rating -> line
         self.bands: dict[str, tuple] = {}  # part -> (lower curve, upper curve, fill) of the error band
+        self.reference_curves: dict[str, pg.PlotDataItem] = {}  # part -> the run's curve under a what-if
+        self._heading = ""
         self._unit = ("s", 1.0)
         self._verdicts: dict[str, str] = {}
         self._errors: dict[str, float] = {}
@@ -54,6 +56,7 @@ class PartChart(pg.PlotWidget):
         if on:
             self.plotItem.clear()
             self.curves, self.limits, self.limit_lines, self.bands = {}, {}, {}, {}
+            self.reference_curves = {}
             self._key = None
             self.plotItem.setTitle(None)
             self.plotItem.addItem(self.empty_text, ignoreBounds=True)
@@ -64,11 +67,13 @@ class PartChart(pg.PlotWidget):
             self.plotItem.removeItem(self.empty_text)
 
     def show_parts(self, names, times, part_max, part_names, ratings, span_s: float | None = None,
-                   verdicts: dict | None = None, errors: dict | None = None) -> None:
+                   verdicts: dict | None = None, errors: dict | None = None, reference=None,
+                   heading: str = "") -> None:
         """Curves for ``names``: ``times`` (T,) s, ``part_max`` (T, P) °C; ``ratings`` name → °C or None;
         ``span_s`` the time axis length (the run's duration, so a streaming run fills it left to right);
         ``verdicts`` name → over / at-risk / ok / unrated and ``errors`` name → K (the peak table's
-        error band) once the run has finished.
+        error band) once the run has finished; ``reference`` (times (T,), part maxima (T, P)) is drawn
+        thin and dashed under the curves (the run beneath a what-if), ``heading`` before the legend.
 
         The plot items are rebuilt only when the choice of parts, their verdicts or the time unit
         change; new output times only replace the curves' data (cheap while a run streams in)."""
@@ -78,12 +83,16 @@ class PartChart(pg.PlotWidget):
         span = float(span_s) if span_s else (float(times[-1]) if len(times) else 0.0)
         unit = time_unit(span)
         key = (tuple(names), tuple(ratings.get(n) for n in names), unit,
-               tuple(verdicts.get(n) for n in names), tuple(errors.get(n) for n in names))
+               tuple(verdicts.get(n) for n in names), tuple(errors.get(n) for n in names),
+               reference is not None, heading)
         if key != getattr(self, "_key", None):
-            self._verdicts, self._errors = verdicts, errors
-            self._rebuild(names, ratings, unit)
+            self._verdicts, self._errors, self._heading = verdicts, errors, heading
+            self._rebuild(names, ratings, unit, with_reference=reference is not None)
             self._key = key
         t = np.asarray(times, float) / self._unit[1]
+        for name, curve in self.reference_curves.items():
+            rt, rp = reference
+            curve.setData(np.asarray(rt, float) / self._unit[1], np.asarray(rp)[:, part_names.index(name)])
         for name, curve in self.curves.items():
             j = part_names.index(name)
             y = part_max[:, j] if len(times) else np.zeros(0)
@@ -95,6 +104,10 @@ class PartChart(pg.PlotWidget):
                 upper.setData(t, y + err)
         shown = part_max[:, [part_names.index(n) for n in names]] if len(times) and names else np.zeros(0)
         ys = [float(np.nanmin(shown)), float(np.nanmax(shown))] if np.isfinite(shown).any() else []
+        if reference is not None and len(reference[0]) and names:
+            ref = np.asarray(reference[1])[:, [part_names.index(n) for n in names]]
+            if np.isfinite(ref).any():
+                ys += [float(np.nanmin(ref)), float(np.nanmax(ref))]
         ys += [r for r in (ratings.get(n) for n in names) if r is not None]
         ys = [y for y in ys if np.isfinite(y)]
         if len(t) or span > 0:
@@ -104,10 +117,11 @@ class PartChart(pg.PlotWidget):
             pad = max(0.5, 0.1 * (hi - lo))
             self.plotItem.setYRange(lo - pad, hi + 1.5 * pad, padding=0)  # room for the top limit's label
 
-    def _rebuild(self, names, ratings, unit) -> None:
+    def _rebuild(self, names, ratings, unit, with_reference: bool = False) -> None:
         self.plotItem.clear()
         self.plotItem.addItem(self.cursor, ignoreBounds=True)
         self.curves, self.limits, self.limit_lines, self.bands = {}, {}, {}, {}
+        self.reference_curves = {}
         self._unit = unit
         self.plotItem.setLabel("bottom", "Time", units=unit[0])
         keys = []  # the legend sits above the plot as a title line, so it never covers a curve
@@ -128,6 +142,9 @@ class PartChart(pg.PlotWidget):
                 for item in (lower, upper, fill):
                     self.plotItem.addItem(item)
                 self.bands[name] = (lower, upper, fill)
+            if with_reference:
+                self.reference_curves[name] = self.plotItem.plot([], [], pen=pg.mkPen(colour, width=1.2,
+                                                                                      style=Qt.DotLine))
             self.curves[name] = self.plotItem.plot([], [], pen=pg.mkPen(colour, width=4 if heavy else 1.8),
                                                    symbolSize=5 if heavy else 4, symbolBrush=colour, symbolPen=None)
             if heavy:
@@ -153,6 +170,10 @@ class PartChart(pg.PlotWidget):
                 self.limits[n] = line
         title = "&nbsp;&nbsp;".join(keys) + ("&nbsp;&nbsp;<span style='color:#555'>- - rating</span>"
                                             if self.limits else "")
+        if with_reference:
+            title += "&nbsp;&nbsp;<span style='color:#555'>··· the run</span>"
+        if getattr(self, "_heading", ""):
+            title = self._heading + "&nbsp;&nbsp;" + title
         self.plotItem.setTitle(title, size="9pt")
 
     def set_cursor(self, time_s: float) -> None:

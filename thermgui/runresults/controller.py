@@ -31,10 +31,13 @@ from .peaktable import PeakTable
 from .resultfiles import ResultFiles, previous_run
 from .runpanel import RunStatus
 from .store import ResultsStore, results_folder_for
+from .sweepview import SweepControl
 from .timefmt import format_time
 from .temprun import STALE_TEMP_S, TEMP_PREFIX, clean_stale_temp_runs  # noqa: F401 (re-exported)
 from .timeline import TimelineBar
+from .whatifcontrol import WhatIfControl
 from .worker import RunWorker, start_worker
+from .zthview import ZthControl
 
 LIVE_REDRAW_MS = 300  # shortest pause between live redraws while a run streams frames
 LIVE_DUTY = 0.05  # live redraws aim at this share of the wall time (the solve shares the CPU) ...
@@ -60,6 +63,10 @@ class ResultsController(LookInside, ResultFiles, QObject):
         self.view = FieldView(window.viewport.plotter)
         self._build_widgets()
         self._build_actions()
+        self._session = None  # the running session (its last mesh level is the one reported)
+        self.whatif = WhatIfControl(self)
+        self.zth = ZthControl(self)
+        self.sweep = SweepControl(self)
         self._redraw = QTimer(self)
         self._redraw.setSingleShot(True)
         self._redraw.setInterval(LIVE_REDRAW_MS)
@@ -236,6 +243,7 @@ class ResultsController(LookInside, ResultFiles, QObject):
         self.status.clear_error()
         self.status.preparing("Meshing and assembling the model…")
         self._pending_model = model.to_json_dict()
+        self.whatif.run_started()
         cut = self.view.cut
         # unless the user chose a cut: cut from the first frame where the hottest part will be
         # hidden inside (the heated part with the highest power density), so the live view shows it
@@ -291,6 +299,9 @@ class ResultsController(LookInside, ResultFiles, QObject):
             self.stop_run()
             self.wait()
             self._on_thread_finished()
+        self.whatif.shutdown()
+        self.zth.shutdown()
+        self.sweep.shutdown()
         self.remove_temp_folders()
 
     def _on_prepared(self, session, prepared) -> None:
@@ -306,6 +317,7 @@ class ResultsController(LookInside, ResultFiles, QObject):
         else:
             self._auto_note = ""
         self._stepper = session.stepper  # read after the run: how it was solved
+        self._session = session
         self._results_model = self._pending_model
         self._live = None
         self.stale = False
@@ -392,6 +404,9 @@ class ResultsController(LookInside, ResultFiles, QObject):
         self.status.finished(f"Finished: {s.n_frames} outputs, kept in {where}{note}" + self._auto_cut())
         self.status.detail.setToolTip(str(s.folder))
         self.show_index(self.timeline.index)
+        if self._session is not None:
+            self.whatif.run_finished(self._session.problem)
+        self._session = None
 
     def _on_failed(self, headline: str, details: str, issues) -> None:
         self.status.show_error(headline, details)
@@ -417,6 +432,9 @@ class ResultsController(LookInside, ResultFiles, QObject):
         self.worker.deleteLater()
         self.thread.deleteLater()
         self.worker = self.thread = None
+        if self._session is not None:  # stopped or failed: no finished run to offer a what-if from
+            self._session = None
+            self.whatif.run_ended_unfinished()
         self.run_action.setEnabled(True)
         self.stop_action.setEnabled(False)
 
@@ -461,9 +479,17 @@ class ResultsController(LookInside, ResultFiles, QObject):
         and the chart's cursor there."""
         s = self.store
         text = f"t = {format_time(t, s.duration_s)}" + (" (computing)" if computing else "")
-        self.view.set_caption(text + ("   (model changed since)" if self.stale and not computing else ""))
+        self.view.set_caption(text + ("   (model changed since)" if self.stale and not computing else "")
+                              + self.whatif.caption_note())
         self.timeline.show_time_text(text if computing else None)
         self.chart.set_cursor(t)
+
+    def refresh_caption(self) -> None:
+        """Redraw the view's caption (time, stale model, what-if note) for the shown output."""
+        s = self.store
+        if s is not None and s.n_frames and self.results_shown:
+            self._show_time(s.times[max(0, min(self.timeline.index, s.n_frames - 1))])
+            self.view.repaint()
 
     def _mark(self, over: set, at_risk: set = frozenset()) -> None:
         """Mark parts over their rating (red) and at risk (amber) in the view (frames, caption) and
@@ -510,8 +536,14 @@ class ResultsController(LookInside, ResultFiles, QObject):
             k = PEAK_COLUMNS.index("status")
             verdicts = {r[0]: r[k] for r in s.peak_rows}
             errors = {n: s.error_k(n) for n in names}
+        extra = {}
+        answer = self.whatif.chart_data()
+        if answer is not None:  # the what-if's curves, the run's beneath them
+            extra = dict(reference=(times, pmax), heading=self.whatif.heading())
+            times, pmax, verdicts = answer
+            errors = {}
         self.chart.show_parts(names, times, pmax, s.part_names, {n: s.rating(n) for n in names},
-                              span_s=s.duration_s, verdicts=verdicts, errors=errors)
+                              span_s=s.duration_s, verdicts=verdicts, errors=errors, **extra)
         if s.n_frames:
             self.chart.set_cursor(s.times[min(self.timeline.index, s.n_frames - 1)])
 

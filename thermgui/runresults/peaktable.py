@@ -15,6 +15,9 @@ from .peakview import VERDICT_FILL, VERDICT_TEXT, columns, display_row, review_o
 from .store import peaks_tsv
 
 CSV_ROLE = Qt.UserRole + 1
+# the what-if marking (our own pick): a blue band, unlike the verdict colours
+BANNER_STYLE = ("QLabel { background: #e3ecfb; color: #143f86; border: 1px solid #4a78c2; border-radius: 3px;"
+                " padding: 3px; }")
 STATUS_COL = PEAK_COLUMNS.index("status")  # in the CSV rows
 TOOLTIPS = {"part": "part", "status": "status (over: above the rating even at the low end of the error band; "
             "at risk: the rating lies inside peak ± error)", "rated": "rated_c", "peak": "peak_c ± peak_error_k",
@@ -71,12 +74,18 @@ class PeakTable(QWidget):
         self.copy_button.setToolTip("Copy as tab-separated text (the columns of peaks.csv), for a spreadsheet")
         self.export_button.setEnabled(False)
         self.copy_button.setEnabled(False)
+        self.banner = QLabel()  # shown while the rows are a what-if answer, not the run's own
+        self.banner.setWordWrap(True)
+        self.banner.setStyleSheet(BANNER_STYLE)
+        self.banner.hide()
+        self.answer = "run"
         row = QHBoxLayout()
         row.addWidget(self.summary, 1)
         row.addWidget(self.copy_button)
         row.addWidget(self.export_button)
         lay = QVBoxLayout(self)
         lay.setContentsMargins(0, 0, 0, 0)
+        lay.addWidget(self.banner)
         lay.addLayout(row)
         lay.addWidget(self.table, 1)
         self.table.installEventFilter(self)  # Ctrl+C in the table copies the whole table
@@ -103,6 +112,16 @@ class PeakTable(QWidget):
 
     def column(self, key: str) -> int:
         return [k for k, _ in self._cols].index(key)
+
+    def set_banner(self, html: str | None) -> None:
+        """A marked line above the table (a what-if answer is shown); None hides it. While it is
+        shown, Export is off (it writes the run's peaks.csv); Copy copies the rows shown."""
+        self.answer = "run" if not html else "what-if"
+        self.banner.setText(html or "")
+        self.banner.setVisible(bool(html))
+        self.export_button.setEnabled(self.answer == "run" and self.table.rowCount() > 0)
+        self.export_button.setToolTip("" if self.answer == "run" else
+                                      "Export writes the run's peaks.csv: go back to the run's answer first")
 
     def set_rows(self, rows, span_s: float | None = None) -> None:
         """Rows of peaks.csv as strings (None: cleared); ``span_s`` the run's duration (time unit)."""
@@ -149,8 +168,9 @@ class PeakTable(QWidget):
                             "(rating within the error band, amber)")
             self.summary.setText("; ".join(bits) + ".")
         else:
-            self.summary.setText("No rated part reached its rating during the run.")
-        self.export_button.setEnabled(bool(rows))
+            self.summary.setText("No rated part reached its rating "
+                                 + ("in this what-if." if self.answer == "what-if" else "during the run."))
+        self.export_button.setEnabled(bool(rows) and self.answer == "run")
         self.copy_button.setEnabled(bool(rows))
 
     def shown_rows(self) -> list[list[str]]:

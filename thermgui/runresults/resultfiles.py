@@ -43,6 +43,8 @@ class ResultFiles:
             self.status.show_error("These results cannot be opened.",
                                    f"{folder}: damaged or incomplete ({type(e).__name__}: {e})")
             return None
+        if hasattr(self, "whatif"):
+            self.whatif.results_opened()
         self.store = store
         self._results_model = run.model_dict
         self.stale = self._model_differs()
