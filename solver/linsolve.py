@@ -38,9 +38,12 @@ SMOOTHER = (("gauss_seidel", {"sweep": "forward"}), ("gauss_seidel", {"sweep": "
 # 10 GB at 1 000 000 nodes, growing like n^(4/3) (issue 5's measurements, PARDISO and CHOLMOD).
 FACTOR_BYTES_AT_1M = 10e9
 DIRECT_MEMORY_SHARE = 0.25  # "fits comfortably": at most this share of the available memory
-# All factors of a run together, as stored: above this, factorization takes minutes on two cores,
-# and a 1M-node run would not stay within 3 GB in all
-DIRECT_MAX_BYTES = 2.0e9
+# All factors of a run together, as stored (single precision counts half): above this, multigrid.
+# Was 2 GB; at 1.47M nodes (a 4.2 GB double factor) that chose multigrid for a reduced basis of
+# 55 vectors, one CG solve each: 476 s for that mesh level against 15 s for the 604k level before
+# it (benchmarks/README.md, session 5). A factor is also bounded by DIRECT_MEMORY_SHARE of the
+# memory available; 1M-node runs are unaffected (their single-precision factor is about 1.1 GB).
+DIRECT_MAX_BYTES = 4.0e9
 # Above this (double precision, all factors of a run), factor in single precision and refine in
 # double: half the memory and factorization time for an extra solve or two per step. Chosen so
 # that a 1M-node enclosure (2.2 GB in double, measured) stays within 3 GB in all.

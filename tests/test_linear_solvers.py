@@ -145,8 +145,11 @@ def test_choice_with_measured_factor_size():
     assert linsolve.choose_method(200_000, factor_bytes=0.3e9, available_bytes=avail).method == "pardiso"
     mid = linsolve.choose_method(1_000_000, factor_bytes=2.2e9, available_bytes=avail)
     assert mid.method == "pardiso-single" and "measured" in mid.reason and "single precision" in mid.reason
+    # three such factors (6.6 GB, 3.3 GB in single precision) fit DIRECT_MAX_BYTES (4 GB); four do not
     assert linsolve.choose_method(1_000_000, factor_bytes=2.2e9, available_bytes=avail,
-                                  matrices=3).method == "multigrid"
+                                  matrices=3).method == "pardiso-single"
+    assert linsolve.choose_method(1_000_000, factor_bytes=2.2e9, available_bytes=avail,
+                                  matrices=4).method == "multigrid"
     assert linsolve.choose_method(200_000, factor_bytes=0.3e9, available_bytes=avail, matrices=2).method == "pardiso"
     assert linsolve.choose_method(1_000_000, factor_bytes=10e9, available_bytes=avail).method == "multigrid"
     # a short run does not repay a large single-precision factorization
