@@ -1,7 +1,8 @@
 """From a validated model to the semi-discrete system M d' + K d = F(t).
 
-``F(t) = Σ_loads P(t)·s_part + Σ_convection b_c·T_amb,c(t)``, where ``s_part`` spreads a part's
-watts over its volume and ``b_c = ∫ h Nᵢ dA`` over that convection entry's faces.
+``F(t) = Σ_loads P(t)·s_part + Σ_surface Q_s(t)·s_s + Σ_convection b_c·T_amb,c(t)``, where ``s_part``
+spreads a part's watts over its volume, ``s_s = ∫ α Nᵢ dA / (α A)`` a surface load's absorbed watts
+``Q_s = α A q''(t)`` over its faces, and ``b_c = ∫ h Nᵢ dA`` over that convection entry's faces.
 Temperatures in °C (the problem is linear, so offsets are exact), SI elsewhere.
 """
 from __future__ import annotations
@@ -13,9 +14,9 @@ import scipy.sparse as sp
 
 from . import assemble
 from .errors import ModelError
-from .mesh import MM, Mesh, build_mesh, convection_face_mask, isolated_parts
+from .mesh import MM, SIDE_AXIS, Mesh, build_mesh, convection_face_mask, isolated_parts
 from .probes import probe_matrix
-from .profiles import Constant, ProfileFunction, make_profile
+from .profiles import Constant, ProfileFunction, make_profile, scaled
 
 
 @dataclass
@@ -63,6 +64,12 @@ class Problem:
     part_volume: np.ndarray  # m³
     warnings: list = field(default_factory=list)
     pattern: object = None  # assemble.GridPattern shared by every matrix above (None: general matrices)
+    surface_loads: list = field(default_factory=list)  # (s (N,) summing to 1, ProfileFunction of absorbed W)
+
+    @property
+    def n_watt_loads(self) -> int:
+        """Load-basis columns whose coefficient is watts (heat loads, then surface loads)."""
+        return len(self.heat_profiles) + len(self.surface_loads)
 
     @property
     def n_nodes(self) -> int:
@@ -113,6 +120,7 @@ class Problem:
         """Sparse (N, L) matrix whose columns are the load vectors of heat loads and convection entries."""
         if getattr(self, "_basis", None) is None:
             cols = [self.heat_shares_t[:, [p]] for p, _ in self.heat_profiles]
+            cols += [sp.csr_matrix(s[:, None]) for s, _ in self.surface_loads]
             cols += [sp.csr_matrix(b[:, None]) for b, _ in self.conv_loads]
             n = self.n_nodes
             self._basis = sp.hstack(cols).tocsr() if cols else sp.csr_matrix((n, 0))
@@ -122,8 +130,10 @@ class Problem:
         return self._basis
 
     def load_coefficients(self, t: float, side: str = "right") -> np.ndarray:
-        """Profile values at ``t`` (W per heat load, then °C per convection entry): F = basis @ these."""
+        """Profile values at ``t`` (W per heat load, W absorbed per surface load, then °C per convection
+        entry): F = basis @ these."""
         return np.array([prof.value(t, side) for _, prof in self.heat_profiles]
+                        + [prof.value(t, side) for _, prof in self.surface_loads]
                         + [amb.value(t, side) for _, amb in self.conv_loads], dtype=float)
 
     def load_from_coefficients(self, c: np.ndarray) -> np.ndarray:
@@ -134,8 +144,9 @@ class Problem:
         return self.load_from_coefficients(self.load_coefficients(t, side))
 
     def heat_input(self, t: float, side: str = "right") -> float:
-        """Total heat generation in W."""
-        return float(sum(prof.value(t, side) for _, prof in self.heat_profiles))
+        """Total heat generation plus absorbed surface flux in W."""
+        return float(sum(prof.value(t, side) for _, prof in self.heat_profiles)
+                     + sum(prof.value(t, side) for _, prof in self.surface_loads))
 
     def convected_out(self, d: np.ndarray, t: float, side: str = "right") -> float:
         """Heat leaving through convection faces, W (Σ ∫ h (T - T_amb) dA)."""
@@ -150,7 +161,7 @@ class Problem:
 
     def breakpoints(self, t_end: float):
         out = []
-        for _, prof in self.heat_profiles:
+        for _, prof in self.heat_profiles + self.surface_loads:
             out += prof.breakpoints(t_end)
         for _, amb in self.conv_loads:
             out += amb.breakpoints(t_end)
@@ -186,6 +197,36 @@ def part_blocks(model, mesh: Mesh) -> list:
             i1 = int(np.argmin(np.abs(lines_mm - (p.origin_mm[ax] + p.size_mm[ax]))))
             sl.append(slice(i0, max(i1, i0)))
         out.append(tuple(sl))
+    return out
+
+
+def side_face_mask(mesh: Mesh, model, part_index: int, side: str) -> np.ndarray:
+    """Boundary triangles on a part's side (``x-`` … ``z+``, or ``exposed``), with the same meaning
+    as a convection entry's side (NOTES §3): the part's own cells, on its plane, not covered."""
+    bf = mesh.boundary
+    mask = bf.part == part_index
+    if side != "exposed":
+        ax, direction = SIDE_AXIS[side]
+        part = model.parts[part_index]
+        coord = (part.origin_mm[ax] + (part.size_mm[ax] if direction > 0 else 0.0)) * MM
+        mask &= (bf.axis == ax) & (bf.direction == direction) & (np.abs(bf.plane - coord) < 1e-9)
+    return mask
+
+
+def surface_load_columns(model, mesh: Mesh, warnings: list) -> list:
+    """(s (N,), absorbed-watts profile) per surface load with any face; ``s`` sums to one."""
+    out = []
+    bf = mesh.boundary
+    for sl in model.surface_loads:
+        mask = side_face_mask(mesh, model, model.part_index(sl.part), sl.side)
+        area = float(bf.area[mask].sum())
+        if area <= 0 or sl.absorptivity <= 0:
+            warnings.append(f"surface load {sl.name!r} ({sl.side} of {sl.part!r}) "
+                            + ("covers no exposed face" if area <= 0 else "has absorptivity 0") + "; it has no effect")
+            continue
+        tris = bf.tris[mask]
+        s = assemble.surface_load(mesh.nodes, tris, np.ones(len(tris)), bf.area[mask]) / area
+        out.append((s, scaled(make_profile(sl.flux_w_m2), sl.absorptivity * area)))
     return out
 
 
@@ -259,6 +300,8 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
             warnings.append("no path to any convection face from: " + ", ".join(repr(c) for c in cold)
                             + " (their temperature can only rise)")
 
+    surface = surface_load_columns(model, mesh, warnings)
+
     points = [np.asarray(pr.at_mm, dtype=float) * MM for pr in model.probes]
     pmat, missing = probe_matrix(mesh, points)
     for k in missing:
@@ -273,4 +316,4 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
     index = np.concatenate(ids_per_part) if n_parts else np.zeros(0, dtype=np.int64)
     return Problem(model, mesh, kc, conv, capacity, lumped, shares, heat_profiles, conv_loads, pmat,
                    initial_field(model, mesh, ids_per_part), PartNodes(index, offsets, counts), part_vol, warnings,
-                   pattern)
+                   pattern, surface)

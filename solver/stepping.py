@@ -82,7 +82,7 @@ class LoadCombiner:
     def __init__(self, problem):
         self.p = problem
         self.basis = problem._load_basis()
-        self.n_heat = len(problem.heat_profiles)
+        self.n_heat = problem.n_watt_loads  # watt columns (heat loads, surface loads) come first
         self.conv_sum = problem._conv_sum
         # Σ_c b_c is non-zero on convection faces only: keep those entries for a short dot product
         self.conv_idx = np.flatnonzero(problem._conv_b)
@@ -175,7 +175,7 @@ class Stepper:
         for _, amb in p.conv_loads:  # convection entries sharing an ambient profile share a basis column
             if not any(amb == g for g in groups):
                 groups.append(amb)
-        shapes = len(p.heat_profiles) + len(groups) + (1 if np.ptp(p.initial) > 0.0 else 0)
+        shapes = p.n_watt_loads + len(groups) + (1 if np.ptp(p.initial) > 0.0 else 0)
         implicit = [s for s in self.steps if s.theta > 0.0]
         from .reduced import MAX_BASIS_BYTES, MAX_COLUMNS
 
