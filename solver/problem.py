@@ -13,6 +13,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from . import assemble
+from .contacts import contact_resistance_grid, effective_conductivity
 from .errors import ModelError
 from .mesh import MM, SIDE_AXIS, Mesh, build_mesh, convection_face_mask, isolated_parts
 from .probes import probe_matrix
@@ -245,6 +246,12 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
     pattern = assemble.GridPattern(mesh, full=model.run.mass == "consistent", surface_tris=conv_tri_all)
     h_cell = assemble.cell_sizes(mesh, pattern)
     k_cell, rc_cell = material_arrays(model, pattern.cell_part)
+    issues = []
+    contact_area = []
+    if model.contacts:
+        r_grid, contact_area, contact_issues = contact_resistance_grid(model, mesh)
+        issues += contact_issues
+        k_cell = effective_conductivity(k_cell, h_cell, r_grid[pattern.cell_index])
     kc = pattern.matrix(assemble.grid_conductivity_data(pattern, h_cell, k_cell))
     lumped = assemble.grid_lumped_capacity(pattern, h_cell, rc_cell)
     capacity = None
@@ -252,7 +259,6 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
         capacity = pattern.matrix(assemble.grid_capacity_data(pattern, h_cell, rc_cell))
 
     part_vol = np.bincount(pattern.cell_part, weights=h_cell.prod(axis=1), minlength=n_parts)
-    issues = []
     for i, p in enumerate(model.parts):
         if part_vol[i] <= 0:
             warnings.append(f"part {p.name!r} is entirely covered by later parts and holds no volume")
