@@ -13,6 +13,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from . import assemble
+from .airnodes import build_air, coupling_matrix
 from .contacts import contact_resistance_grid, effective_conductivity
 from .errors import ModelError
 from .mesh import MM, SIDE_AXIS, Mesh, build_mesh, convection_face_mask, isolated_parts
@@ -66,6 +67,12 @@ class Problem:
     warnings: list = field(default_factory=list)
     pattern: object = None  # assemble.GridPattern shared by every matrix above (None: general matrices)
     surface_loads: list = field(default_factory=list)  # (s (N,) summing to 1, ProfileFunction of absorbed W)
+    air: object = None  # solver.airnodes.AirNodes: unknowns after the mesh nodes (None: no air volume)
+
+    @property
+    def n_mesh(self) -> int:
+        """Mesh nodes (the field); ``n_nodes`` counts every unknown, air nodes included."""
+        return self.mesh.n_nodes
 
     @property
     def n_watt_loads(self) -> int:
@@ -74,7 +81,8 @@ class Problem:
 
     @property
     def n_nodes(self) -> int:
-        return self.mesh.n_nodes
+        """Unknowns of the system: mesh nodes, then one per air volume."""
+        return self.mesh.n_nodes + (len(self.air) if self.air is not None else 0)
 
     @property
     def heat_shares_t(self) -> sp.csr_matrix:
@@ -307,6 +315,11 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
                             + " (their temperature can only rise)")
 
     surface = surface_load_columns(model, mesh, warnings)
+    air, couplings, air_issues, air_mask = build_air(model, mesh, side_face_mask, warnings)
+    issues += air_issues
+    if air is not None and conv_masks and (air_mask & np.logical_or.reduce(conv_masks)).any():
+        warnings.append("some faces exchange heat with an air volume and also convect to an ambient "
+                        "(check the convection entries' sides: \"exposed\" includes the inside of a cover)")
 
     points = [np.asarray(pr.at_mm, dtype=float) * MM for pr in model.probes]
     pmat, missing = probe_matrix(mesh, points)
@@ -320,6 +333,26 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
     counts = np.array([len(x) for x in ids_per_part], dtype=np.int64)
     offsets = np.concatenate([[0], np.cumsum(counts)[:-1]]).astype(np.int64)
     index = np.concatenate(ids_per_part) if n_parts else np.zeros(0, dtype=np.int64)
+    initial = initial_field(model, mesh, ids_per_part)
+    if air is not None:  # append the air unknowns (the matrices leave the grid pattern)
+        n_a = len(air)
+
+        def pad(m):
+            return sp.block_diag((m, sp.csr_matrix((n_a, n_a))), format="csr")
+
+        def pad_cols(m):
+            return sp.hstack([m, sp.csr_matrix((m.shape[0], n_a))], format="csr")
+
+        kc = pad(kc)
+        conv = (pad(conv) + coupling_matrix(mesh, air, couplings)).tocsr()
+        if capacity is not None:
+            capacity = (pad(capacity) + sp.diags(np.concatenate([np.zeros(n), air.capacity_j_k]))).tocsr()
+        lumped = np.concatenate([lumped, air.capacity_j_k])
+        shares, pmat = pad_cols(shares), pad_cols(pmat)
+        zeros = np.zeros(n_a)
+        conv_loads = [(np.concatenate([b, zeros]), amb) for b, amb in conv_loads]
+        surface = [(np.concatenate([s, zeros]), prof) for s, prof in surface]
+        initial = np.concatenate([initial, [float(model.initial_c if av.initial_c is None else av.initial_c)
+                                            for av in model.air_volumes]])
     return Problem(model, mesh, kc, conv, capacity, lumped, shares, heat_profiles, conv_loads, pmat,
-                   initial_field(model, mesh, ids_per_part), PartNodes(index, offsets, counts), part_vol, warnings,
-                   pattern, surface)
+                   initial, PartNodes(index, offsets, counts), part_vol, warnings, pattern, surface, air)

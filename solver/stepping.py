@@ -51,6 +51,7 @@ class StepEvent:
     energy_residual_w: float  # in − stored − out over the step, W (round-off for a direct solve)
     elapsed_s: float
     level: int = 0  # accuracy level (mesh) this event belongs to, set by solver.session
+    air: np.ndarray = dataclasses.field(default_factory=lambda: np.zeros(0))  # (n_air,) °C per air volume
 
     @property
     def fraction(self) -> float:
@@ -272,10 +273,12 @@ class Stepper:
     # ------------------------------------------------------------ events
     def _event(self, step, n_steps, t, dt, d, is_output, q_in, q_out, stored, resid, t_start) -> StepEvent:
         p = self.problem
-        view = d.view()
+        n_m = p.n_mesh
+        view = d[:n_m] if len(d) > n_m else d.view()  # the field: mesh nodes only (air values in .air)
         view.flags.writeable = False
         return StepEvent(step, n_steps, t, dt, view, p.part_nodes.maxima(d), p.heat_shares @ d,
-                         p.probes @ d, is_output, q_in, q_out, stored, resid, _time.perf_counter() - t_start)
+                         p.probes @ d, is_output, q_in, q_out, stored, resid, _time.perf_counter() - t_start,
+                         air=d[n_m:].copy())
 
     def __iter__(self) -> Iterator[StepEvent]:
         if self.method == "reduced":
