@@ -464,7 +464,15 @@ def _cross_check(m: Model) -> list[tuple[str, str]]:
                 issues.append((f"air_volumes[{i}].faces[{j}].part", f"unknown part {f.part!r}"))
         if av.initial_c is not None and av.initial_c <= ABSOLUTE_ZERO_C:
             issues.append((f"air_volumes[{i}].initial_c", "must be above absolute zero (-273.15 °C)"))
-    if any(c.emissivity is not None for c in m.convection) and m.run.tolerance_k is not None:
+    radiating = [i for i, c in enumerate(m.convection) if c.emissivity is not None]
+    if radiating and m.run.scheme == "forward-euler":
+        issues.append(("run.scheme", f"radiation (convection[{radiating[0]}].emissivity) needs an implicit scheme; "
+                                     "choose backward-euler or crank-nicolson"))
+    if radiating and m.run.periodic:
+        issues.append(("run.periodic", f"radiation (convection[{radiating[0]}].emissivity) makes the model "
+                                       "nonlinear, and the settled cycle is found by superposition; remove "
+                                       "run.periodic (run several periods instead) or the emissivity"))
+    if radiating and m.run.tolerance_k is not None:
         issues.append(("run.tolerance_k", "adaptive steps are not available with radiation (emissivity); remove "
                                           "run.tolerance_k to use fixed steps with Newton iterations"))
     probe_names: dict[str, int] = {}

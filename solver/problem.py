@@ -18,6 +18,7 @@ from .contacts import contact_resistance_grid, effective_conductivity
 from .errors import ModelError
 from .mesh import MM, SIDE_AXIS, Mesh, build_mesh, convection_face_mask, isolated_parts
 from .probes import probe_matrix
+from .radiation import build_radiation
 from .profiles import Constant, ProfileFunction, make_profile, scaled
 
 
@@ -68,6 +69,7 @@ class Problem:
     pattern: object = None  # assemble.GridPattern shared by every matrix above (None: general matrices)
     surface_loads: list = field(default_factory=list)  # (s (N,) summing to 1, ProfileFunction of absorbed W)
     air: object = None  # solver.airnodes.AirNodes: unknowns after the mesh nodes (None: no air volume)
+    radiation: object = None  # solver.radiation.Radiation (None: linear model)
 
     @property
     def n_mesh(self) -> int:
@@ -174,6 +176,8 @@ class Problem:
             out += prof.breakpoints(t_end)
         for _, amb in self.conv_loads:
             out += amb.breakpoints(t_end)
+        if self.radiation is not None:
+            out += self.radiation.breakpoints(t_end)
         return out
 
 
@@ -354,5 +358,12 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
         surface = [(np.concatenate([s, zeros]), prof) for s, prof in surface]
         initial = np.concatenate([initial, [float(model.initial_c if av.initial_c is None else av.initial_c)
                                             for av in model.air_volumes]])
+    n_all = n + (len(air) if air is not None else 0)
+
+    def ambient_of(i):
+        c = model.convection[i]
+        return make_profile(c.ambient_c) if c.ambient_c is not None else Constant(float(model.ambient_c))
+
+    radiation = build_radiation(model, mesh, conv_masks, n_all, make_profile, ambient_of)
     return Problem(model, mesh, kc, conv, capacity, lumped, shares, heat_profiles, conv_loads, pmat,
-                   initial, PartNodes(index, offsets, counts), part_vol, warnings, pattern, surface, air)
+                   initial, PartNodes(index, offsets, counts), part_vol, warnings, pattern, surface, air, radiation)

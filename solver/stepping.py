@@ -159,6 +159,14 @@ class Stepper:
                                     problem.breakpoints(float(run.duration_s)), self.outputs, damp_after_jumps)
             self._n_steps_estimate = len(self.steps)
         self.method_choice = choose_run_method(self._run_shape(), requested)
+        self.newton = None  # radiation: iteration counts (see _run_radiative)
+        if getattr(problem, "radiation", None) is not None and requested != "full":
+            names = ", ".join(repr(n) for n in problem.radiation.names)
+            self.method_choice = dataclasses.replace(
+                self.method_choice, method="full",
+                reason=(f"run.method = {requested!r}, but radiation (emissivity on {names}) makes the model "
+                        "nonlinear and the reduced basis needs a linear one, so the full system is stepped "
+                        "(chord-Newton iterations in each step)"))
         self.method = self.method_choice.method
         if self.method == "reduced":
             self._full_plan = (self.scheme, self._n_steps_estimate)
@@ -296,6 +304,11 @@ class Stepper:
         return self._run_fixed()
 
     def _run_fixed(self) -> Iterator[StepEvent]:
+        if getattr(self.problem, "radiation", None) is not None:
+            return self._run_radiative()
+        return self._run_linear()
+
+    def _run_linear(self) -> Iterator[StepEvent]:
         p = self.problem
         t_start = _time.perf_counter()
         k_mat = p.stiffness
@@ -342,6 +355,139 @@ class Stepper:
                 prev2, prev = prev, (d, dt)
                 d, bd = d_new, bd_new
                 yield self._event(i, n_steps, st.t1, dt, d, st.output, q_in, q_out, stored, resid, t_start)
+        finally:
+            self.close()
+
+
+    # ------------------------------------------------------------ radiation (nonlinear)
+    def _rad_solver(self, dt: float, theta: float):
+        """Factor of M/Δt + θ(K + diag(slope)) at the current linearisation (cached per Δt, θ)."""
+        key = (dt, theta, "rad", self._lin_version)
+        s = self._solvers.get(key)
+        if s is not None:
+            self._solvers.move_to_end(key)
+            return s
+        p = self.problem
+        a = self.step_matrix(dt, theta)
+        shared = p.pattern is not None and p._shares_pattern()
+        if shared:
+            data = a.data.copy()
+            data[p.pattern.diagonal] += theta * self._lin
+            a = p.pattern.matrix(data)
+        else:
+            a = (a + sp.diags(theta * self._lin)).tocsr()
+        s = make_solver(a, self.choice.method, upper=p.pattern.upper() if shared else None)
+        self.factorizations += 1
+        limit = MAX_CACHED_SOLVERS_SMALL if p.n_nodes < SMALL_PROBLEM_NODES else MAX_CACHED_SOLVERS
+        while len(self._solvers) >= limit:
+            _, old = self._solvers.popitem(last=False)
+            old.close()
+        self._solvers[key] = s
+        return s
+
+    def _relinearise(self, d: np.ndarray) -> None:
+        """Update the radiative slope at ``d`` and drop the factors built on the old one."""
+        self._lin = self.problem.radiation.slope(d)
+        self._lin_version += 1
+        self.newton["relinearisations"] += 1
+        for key in [k for k in self._solvers if len(k) == 4]:
+            self._solvers.pop(key).close()
+
+    def _rad_substep(self, d0: np.ndarray, t0: float, t1: float, side0: str, side1: str, theta: float,
+                     loads: "LoadCombiner"):
+        """One θ step with radiation, solved by chord-Newton; (d1, heat in W, heat out W) averaged
+        over the step, or None when it does not converge."""
+        from .radiation import MAX_CHORD, MAX_ITER, MIN_CONTRACTION, NEWTON_TOL_K
+
+        p, rad = self.problem, self.problem.radiation
+        dt = canonical_step(t1 - t0)
+        k_mat = p.stiffness
+        c0, c1 = loads.coefficients(t0, side0), loads.coefficients(t1, side1)
+        ts0, ts1 = rad.ts4(t0, side0), rad.ts4(t1, side1)
+        rhs = self.mass_times(d0) / dt + loads.force(theta * c1 + (1.0 - theta) * c0)
+        if theta < 1.0:
+            rhs -= (1.0 - theta) * (k_mat @ d0 + rad.node_flow(d0, ts0))
+        x = d0.copy()
+        prev_change, chord = None, 0
+        solver = self._rad_solver(dt, theta)
+        for _ in range(MAX_ITER):
+            g = self.mass_times(x) / dt + theta * (k_mat @ x + rad.node_flow(x, ts1)) - rhs
+            dx = solver.solve(-g)
+            self.solves += 1
+            self.newton["iterations"] += 1
+            x = x + dx
+            if not np.all(np.isfinite(x)):
+                return None
+            change = float(np.abs(dx).max())
+            if change < NEWTON_TOL_K:
+                q_in = theta * loads.heat_in(c1) + (1 - theta) * loads.heat_in(c0)
+                q_out = (theta * (loads.convected_out(loads.bd(x), c1) + rad.total(x, ts1))
+                         + (1 - theta) * (loads.convected_out(loads.bd(d0), c0) + rad.total(d0, ts0)))
+                return x, q_in, q_out
+            chord += 1
+            slow = prev_change is not None and change > MIN_CONTRACTION * prev_change and change > 100 * NEWTON_TOL_K
+            if slow or chord >= MAX_CHORD:
+                self._relinearise(x)
+                solver = self._rad_solver(dt, theta)
+                chord, prev_change = 0, None
+            else:
+                prev_change = change
+        return None
+
+    def _rad_step(self, d: np.ndarray, st, loads):
+        """A planned step, cut into 2, 4, ... sub-steps while the iterations do not converge."""
+        from .radiation import MAX_CUTS
+
+        for cut in range(MAX_CUTS + 1):
+            n_sub = 2 ** cut
+            ts = np.linspace(st.t0, st.t1, n_sub + 1)
+            x, q_in, q_out, ok = d, 0.0, 0.0, True
+            for j in range(n_sub):
+                r = self._rad_substep(x, float(ts[j]), float(ts[j + 1]), "right" if j == 0 else "left",
+                                      "left", st.theta, loads)
+                if r is None:
+                    ok = False
+                    break
+                x, qi, qo = r
+                q_in += qi / n_sub
+                q_out += qo / n_sub
+            if ok:
+                if cut:
+                    self.newton["cut_steps"] += 1
+                return x, q_in, q_out
+        names = ", ".join(repr(n) for n in self.problem.radiation.names)
+        raise SolveError(f"the radiation iterations did not converge at t = {st.t1:g} s, even with the step cut "
+                         f"into {2 ** MAX_CUTS} parts (radiating faces of convection {names}); check the "
+                         "temperatures and emissivities there, or use a shorter run.step_s")
+
+    def _run_radiative(self) -> Iterator[StepEvent]:
+        """Fixed θ steps of the nonlinear system with radiation (solver/radiation.py)."""
+        p, rad = self.problem, self.problem.radiation
+        t_start = _time.perf_counter()
+        loads = LoadCombiner(p)
+        n_steps = self.n_steps
+        d = p.initial.astype(float).copy()
+        c0 = loads.coefficients(0.0, "right")
+        q_in0 = loads.heat_in(c0)
+        q_out0 = loads.convected_out(loads.bd(d), c0) + rad.total(d, rad.ts4(0.0, "right"))
+        self.newton = {"iterations": 0, "relinearisations": 0, "cut_steps": 0, "tolerance_k": None}
+        from .radiation import NEWTON_TOL_K
+
+        self.newton["tolerance_k"] = NEWTON_TOL_K
+        self._lin = rad.slope(d)
+        self._lin_version = 0
+        yield self._event(0, n_steps, 0.0, 0.0, d, True, q_in0, q_out0, q_in0 - q_out0, 0.0, t_start)
+        lumped = p.lumped
+        try:
+            for i, st in enumerate(self.steps, start=1):
+                if self.cancel is not None and self.cancel():
+                    raise Cancelled(f"cancelled at t = {st.t0:g} s")
+                dt = canonical_step(st.dt)
+                d_new, q_in, q_out = self._rad_step(d, st, loads)
+                stored = float(np.einsum("i,i->", lumped, d_new - d)) / dt
+                d = d_new
+                yield self._event(i, n_steps, st.t1, dt, d, st.output, q_in, q_out, stored, q_in - q_out - stored,
+                                  t_start)
         finally:
             self.close()
 

@@ -47,6 +47,7 @@ def write_run_info(path, problem, recorder: RunRecorder, stepper, wall_s: float,
                    "theta": stepper.theta if stepper.method == "full" else None, "steps": stepper.n_steps,
                    "factorizations": stepper.factorizations, "linear_solver": stepper.choice.method,
                    "linear_solver_reason": stepper.choice.reason, "critical_step_s": stepper.critical_step_s,
+                   "radiation_iterations": getattr(stepper, "newton", None),
                    "reduced": (dataclasses.asdict(stepper.reduced_info)
                                if getattr(stepper, "reduced_info", None) is not None else None)},
         "energy": dict(recorder.energy, relative_residual=recorder.relative_energy_residual),
