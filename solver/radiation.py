@@ -8,10 +8,13 @@ shares sum to the face area exactly, and the quadrature converges with the mesh)
 
 In a step the θ-weighted nonlinear equation is solved by a chord (simplified Newton) method:
 the factored matrix holds M/Δt + θ(K + diag(4 ε σ aᵢ T̂ᵢ³)) with the slope T̂ from the last
-re-linearisation; iterations stop when the largest change is below ``NEWTON_TOL_K``. When one
-iteration contracts the change by less than ``MIN_CONTRACTION`` (or the step needs more than
-``MAX_CHORD`` iterations) the slope is updated at the current iterate and re-factored (a full
-Newton step); slow contraction below 100·``NEWTON_TOL_K`` is round-off and does not re-factor. A step that still does not converge is cut into 2, 4, … 16 sub-steps and retried;
+re-linearisation, starting from the linear extrapolation of the last two steps; iterations stop
+when the largest change is below ``NEWTON_TOL_K``, or when the error the observed contraction ρ
+leaves after it (ρ/(1 − ρ) of the change) is below a hundredth of it. When one iteration
+contracts the change by less than ``MIN_CONTRACTION`` (or the step needs more than ``MAX_CHORD``
+iterations) the slope is updated at the current iterate and re-factored (a full Newton step);
+slow contraction below 100·``NEWTON_TOL_K`` is round-off and does not re-factor. A step that
+still does not converge in ``MAX_ITER`` iterations is cut into 2, 4, … 16 sub-steps and retried;
 after that a SolveError names the face entries. See docs/physics.md.
 """
 from __future__ import annotations
@@ -22,11 +25,12 @@ import numpy as np
 
 SIGMA = 5.670374419e-8  # W/(m² K⁴), Stefan–Boltzmann constant (CODATA 2018)
 KELVIN = 273.15
-NEWTON_TOL_K = 1e-8  # K, largest change of the last iteration
+NEWTON_TOL_K = 1e-7  # K, largest change of the last iteration
 MAX_CHORD = 12  # chord iterations before the slope is updated
 MIN_CONTRACTION = 0.3  # an iteration must shrink the change at least this much, or the slope is updated
 MAX_ITER = 60  # iterations in all, per (sub-)step
 MAX_CUTS = 4  # a failing step is retried as 2, 4, 8, 16 sub-steps
+SLOPE_DRIFT = 0.02  # after a step, the slope is updated when it is off by more than this share
 
 
 @dataclass
