@@ -108,9 +108,8 @@ def build_air(model, mesh, side_face_mask, warnings: list):
                 mask = np.zeros_like(mask)
                 mask[sub[toward]] = True
             if not mask.any():
-                issues.append((f"air_volumes[{j}].faces[{k}]",
-                               f"the {f.side} side of {f.part!r} has no exposed face"
-                               + (" toward the enclosed air" if region is not None else "")))
+                warnings.append(f"air volume {av.name!r}: the {f.side} side of {f.part!r} has no exposed face"
+                                + (" toward the enclosed air" if region is not None else "") + "; it has no effect")
                 continue
             face_mask |= mask
             tris = bf.tris[mask]
@@ -118,6 +117,11 @@ def build_air(model, mesh, side_face_mask, warnings: list):
             couplings.append((tris, np.full(len(tris), float(f.h)), a, len(names)))
             ha += float(f.h) * float(a.sum())
             area += float(a.sum())
+        if area <= 0:
+            issues.append((f"air_volumes[{j}].faces", "no listed face exchanges heat with this air (none is "
+                                                      "exposed" + (" toward the enclosed air)" if region is not None
+                                                                   else ")")))
+            continue
         names.append(av.name)
         vols.append(volume)
         caps.append(float(av.density) * float(av.specific_heat) * volume)

@@ -472,9 +472,6 @@ def _cross_check(m: Model) -> list[tuple[str, str]]:
         issues.append(("run.periodic", f"radiation (convection[{radiating[0]}].emissivity) makes the model "
                                        "nonlinear, and the settled cycle is found by superposition; remove "
                                        "run.periodic (run several periods instead) or the emissivity"))
-    if radiating and m.run.tolerance_k is not None:
-        issues.append(("run.tolerance_k", "adaptive steps are not available with radiation (emissivity); remove "
-                                          "run.tolerance_k to use fixed steps with Newton iterations"))
     probe_names: dict[str, int] = {}
     for i, pr in enumerate(m.probes):
         if pr.name in probe_names:

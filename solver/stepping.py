@@ -134,6 +134,12 @@ class Stepper:
         self.reduced_info = None
         self.tolerance_k = tolerance_k if tolerance_k is not None else getattr(run, "tolerance_k", None)
         self.adaptive = self.tolerance_k is not None
+        if self.adaptive and getattr(problem, "radiation", None) is not None:
+            self.adaptive = False  # error-controlled steps are linear-only; radiation steps are fixed
+            msg = ("run.tolerance_k: adaptive steps are not available with radiation (emissivity), so fixed steps "
+                   "of run.step_s are taken, each solved by chord-Newton iterations")
+            if msg not in problem.warnings:
+                problem.warnings.append(msg)
         self.outputs = output_times(float(run.duration_s), run.output_interval_s)
         self.critical_step_s = None
         self._solvers: OrderedDict = OrderedDict()

@@ -114,9 +114,13 @@ def test_open_box_is_refused_and_faces_must_face_the_air():
     assert "air_volumes[0].enclosed_by" in str(e.value) and "do not enclose" in str(e.value)
     d = box()
     d["air_volumes"][0]["faces"][1]["side"] = "z+"  # the lid's top faces the outside, not the air
+    _, problem = problem_of(d)
+    assert any("'top'" in w and "toward the enclosed air" in w for w in problem.warnings)
+    assert problem.air.area_m2[0] == pytest.approx(5 * 40 * 40 * 1e-6)  # the lid's inside no longer counts
+    d["air_volumes"][0]["faces"] = [{"part": "top", "side": "z+", "h": 4.0}]
     with pytest.raises(ModelError) as e:
         problem_of(d)
-    assert "air_volumes[0].faces[1]" in str(e.value)
+    assert "air_volumes[0].faces" in str(e.value) and "no listed face" in str(e.value)
     d = box(volume=-5.0)
     with pytest.raises(ModelError) as e:
         solver.parse_model(d)

@@ -146,3 +146,14 @@ def test_run_record_states_the_method_and_iterations(tmp_path):
     info = json.loads((tmp_path / "out" / "run.json").read_text())
     assert info["solver"]["method"] == "full" and "radiation" in info["solver"]["method_reason"]
     assert info["solver"]["radiation_iterations"]["iterations"] > 0
+
+
+def test_a_step_tolerance_keeps_fixed_steps_with_radiation():
+    d = body(duration_s=120.0)
+    d["run"]["tolerance_k"] = 0.1
+    _, problem = problem_of(d)
+    st = solver.Stepper(problem)
+    assert not st.adaptive and st.scheme == "crank-nicolson"
+    assert any("run.tolerance_k" in w and "radiation" in w for w in problem.warnings)
+    times = [ev.time_s for ev in st]
+    assert times[-1] == 120.0
