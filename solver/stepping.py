@@ -210,6 +210,8 @@ class Stepper:
         else:
             matrices = max(1, len({(round(s.dt, 12), s.theta) for s in self.steps if s.theta > 0.0}))
             steps = len(self.steps)
+            if getattr(p, "radiation", None) is not None:
+                steps *= 3  # solves, not steps: radiation takes 2-3 chord iterations per step (docs/physics.md)
         explicit = self.method == "full" and not self.adaptive and self.theta == 0.0  # diagonal solves only
         factor_bytes = None
         if not explicit and needs_analysis(p.n_nodes, requested, adaptive, matrices):
