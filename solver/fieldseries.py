@@ -80,7 +80,7 @@ class FieldWriter:
         self._thread = None
         if fields == "none":
             return
-        self.n_points = int(problem.n_nodes)
+        self.n_points = int(problem.mesh.n_nodes)
         self._queue: queue.Queue = queue.Queue(maxsize=max(1, queue_frames))
         self._files.append(FIELD_FILE)
         geometry = (problem.mesh.nodes / MM, problem.mesh.tets, problem.mesh.tet_part.astype(np.int32))

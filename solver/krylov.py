@@ -33,6 +33,7 @@ def load_patterns(problem) -> np.ndarray:
     was seen to need more blocks for the same error on the benchmark enclosure, so it is not done.)"""
     n = problem.n_nodes
     cols = [problem.heat_shares_t[:, [part]].toarray().ravel() for part, _ in problem.heat_profiles]
+    cols += [np.asarray(s, dtype=float) for s, _ in problem.surface_loads]
     groups: list[tuple[object, np.ndarray]] = []
     for b, amb in problem.conv_loads:
         for i, (prof, acc) in enumerate(groups):

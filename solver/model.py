@@ -127,11 +127,66 @@ class Convection(_Strict):
     side: Literal["x-", "x+", "y-", "y+", "z-", "z+", "exposed"]
     h: Positive
     ambient_c: Optional[Profile] = None
+    # radiation to the surroundings (exact Stefan–Boltzmann, grey, view factor 1; solver/radiation.py)
+    emissivity: Optional[Annotated[float, Field(gt=0, le=1)]] = None
+    surroundings_c: Optional[Profile] = None  # °C; default: this entry's ambient
 
-    @field_validator("ambient_c", mode="before")
+    @field_validator("ambient_c", "surroundings_c", mode="before")
     @classmethod
     def _number_is_constant(cls, v):
         return _ambient_before(v)
+
+
+class SurfaceLoad(_Strict):
+    """Absorbed surface heat flux (sun, a heater film): absorptivity × flux_w_m2 on a part's side."""
+
+    name: Annotated[str, Field(min_length=1)]
+    part: str
+    side: Literal["x-", "x+", "y-", "y+", "z-", "z+", "exposed"]
+    flux_w_m2: Profile  # W/m² arriving on the face (a number is a constant)
+    absorptivity: Annotated[float, Field(ge=0, le=1)] = 1.0
+
+    @field_validator("flux_w_m2", mode="before")
+    @classmethod
+    def _number_is_constant(cls, v):
+        return _ambient_before(v)
+
+
+class Contact(_Strict):
+    """Thermal contact resistance on the faces where two parts touch (solver/contacts.py)."""
+
+    parts: Annotated[list[Annotated[str, Field(min_length=1)]], Field(min_length=2, max_length=2)]
+    resistance_k_m2_w: Optional[Annotated[float, Field(ge=0)]] = None  # K·m²/W
+    conductance_w_m2k: Optional[Positive] = None  # W/(m²·K) = 1 / resistance
+    side: Optional[Literal["x-", "x+", "y-", "y+", "z-", "z+"]] = None  # only the first part's face on this side
+    name: Optional[str] = None
+
+    @property
+    def resistance(self) -> float:
+        """K·m²/W."""
+        if self.resistance_k_m2_w is not None:
+            return float(self.resistance_k_m2_w)
+        return 1.0 / float(self.conductance_w_m2k)
+
+
+class AirFace(_Strict):
+    part: str
+    side: Literal["x-", "x+", "y-", "y+", "z-", "z+", "exposed"]
+    h: Positive  # W/(m²·K) between the face and the air node
+
+
+class AirVolume(_Strict):
+    """Still air inside a sealed box as one lumped node (solver/airnodes.py)."""
+
+    name: Annotated[str, Field(min_length=1)]
+    enclosed_by: list[Annotated[str, Field(min_length=1)]] = Field(default_factory=list)
+    volume_mm3: Optional[Positive] = None  # absent: the empty space the enclosing parts close off
+    faces: Annotated[list[AirFace], Field(min_length=1)]
+    initial_c: Optional[float] = None
+    rated_c: Optional[float] = None
+    # dry air near 300 K (Incropera, Fundamentals of Heat and Mass Transfer, Table A.4)
+    density: Positive = 1.1614  # kg/m³
+    specific_heat: Positive = 1007.0  # J/(kg·K)
 
 
 class Probe(_Strict):
@@ -188,6 +243,9 @@ class Model(_Strict):
     parts: Annotated[list[Part], Field(min_length=1)]
     heat_loads: list[HeatLoad] = Field(default_factory=list)
     convection: list[Convection] = Field(default_factory=list)
+    surface_loads: list[SurfaceLoad] = Field(default_factory=list)
+    contacts: list[Contact] = Field(default_factory=list)
+    air_volumes: list[AirVolume] = Field(default_factory=list)
     probes: list[Probe] = Field(default_factory=list)
     mesh: MeshSettings = Field(default_factory=MeshSettings)
     run: RunSettings = Field(default_factory=RunSettings)
@@ -231,6 +289,9 @@ _MESSAGES = {
 }
 
 
+_PROFILE_FIELDS = ("profile", "ambient_c", "surroundings_c", "flux_w_m2")
+
+
 def _path_of(loc) -> str:
     out = ""
     skip_next_tag = False
@@ -241,7 +302,7 @@ def _path_of(loc) -> str:
         if skip_next_tag and item in PROFILE_TYPES:
             skip_next_tag = False
             continue
-        skip_next_tag = item in ("profile", "ambient_c")
+        skip_next_tag = item in _PROFILE_FIELDS
         out += ("." if out else "") + str(item)
     return out
 
@@ -306,6 +367,9 @@ def _format_pydantic(err: ValidationError) -> list[tuple[str, str]]:
         m = re.match(r"^(points\[\d+\]\[\d\]): (.*)$", msg or "")
         if m and path.endswith(".points"):
             path, msg = path[: -len("points")] + m.group(1), m.group(2)
+        if path.endswith(("surroundings_c", "flux_w_m2")) and kind in ("model_type", "model_attributes_type",
+                                                                         "dict_type"):
+            msg = "must be a number or a profile object"
         if path.endswith("ambient_c") and kind in ("model_type", "model_attributes_type", "dict_type"):
             msg = "must be a number (°C) or a profile object"
         issues.append((path, msg))
@@ -357,6 +421,57 @@ def _cross_check(m: Model) -> list[tuple[str, str]]:
         conv_names.setdefault(c.name, i)
         if c.ambient_c is not None and any(v <= ABSOLUTE_ZERO_C for v in profile_levels(c.ambient_c)):
             issues.append((f"convection[{i}].ambient_c", "must be above absolute zero (-273.15 °C)"))
+        if c.surroundings_c is not None:
+            if c.emissivity is None:
+                issues.append((f"convection[{i}].surroundings_c", "needs an emissivity (radiation) on this entry"))
+            if any(v <= ABSOLUTE_ZERO_C for v in profile_levels(c.surroundings_c)):
+                issues.append((f"convection[{i}].surroundings_c", "must be above absolute zero (-273.15 °C)"))
+    surf_names: dict[str, int] = {}
+    for i, sl in enumerate(m.surface_loads):
+        if sl.part not in names:
+            issues.append((f"surface_loads[{i}].part", f"unknown part {sl.part!r}"))
+        if sl.name in surf_names:
+            issues.append((f"surface_loads[{i}].name", f"duplicate surface load name {sl.name!r}"))
+        surf_names.setdefault(sl.name, i)
+        if any(v < 0 for v in profile_levels(sl.flux_w_m2)):
+            issues.append((f"surface_loads[{i}].flux_w_m2", "flux must not be negative (W/m²); "
+                                                            "cool a face with a convection entry"))
+    for i, ct in enumerate(m.contacts):
+        for j, pn in enumerate(ct.parts):
+            if pn not in names:
+                issues.append((f"contacts[{i}].parts[{j}]", f"unknown part {pn!r}"))
+        if ct.parts[0] == ct.parts[1]:
+            issues.append((f"contacts[{i}].parts", f"a contact needs two different parts (got {ct.parts[0]!r} twice)"))
+        if (ct.resistance_k_m2_w is None) == (ct.conductance_w_m2k is None):
+            issues.append((f"contacts[{i}]", "give exactly one of resistance_k_m2_w (K·m²/W) or "
+                                             "conductance_w_m2k (W/(m²·K))"))
+    air_names: dict[str, int] = {}
+    for i, av in enumerate(m.air_volumes):
+        if av.name in air_names:
+            issues.append((f"air_volumes[{i}].name", f"duplicate air volume name {av.name!r}"))
+        if av.name in names:
+            issues.append((f"air_volumes[{i}].name", f"{av.name!r} is also a part name; the peak table needs "
+                                                     "distinct names"))
+        air_names.setdefault(av.name, i)
+        for j, pn in enumerate(av.enclosed_by):
+            if pn not in names:
+                issues.append((f"air_volumes[{i}].enclosed_by[{j}]", f"unknown part {pn!r}"))
+        if not av.enclosed_by and av.volume_mm3 is None:
+            issues.append((f"air_volumes[{i}].volume_mm3", "give the air volume, or the parts that enclose it "
+                                                           "(enclosed_by) so it can be computed"))
+        for j, f in enumerate(av.faces):
+            if f.part not in names:
+                issues.append((f"air_volumes[{i}].faces[{j}].part", f"unknown part {f.part!r}"))
+        if av.initial_c is not None and av.initial_c <= ABSOLUTE_ZERO_C:
+            issues.append((f"air_volumes[{i}].initial_c", "must be above absolute zero (-273.15 °C)"))
+    radiating = [i for i, c in enumerate(m.convection) if c.emissivity is not None]
+    if radiating and m.run.scheme == "forward-euler":
+        issues.append(("run.scheme", f"radiation (convection[{radiating[0]}].emissivity) needs an implicit scheme; "
+                                     "choose backward-euler or crank-nicolson"))
+    if radiating and m.run.periodic:
+        issues.append(("run.periodic", f"radiation (convection[{radiating[0]}].emissivity) makes the model "
+                                       "nonlinear, and the settled cycle is found by superposition; remove "
+                                       "run.periodic (run several periods instead) or the emissivity"))
     probe_names: dict[str, int] = {}
     for i, pr in enumerate(m.probes):
         if pr.name in probe_names:
@@ -379,6 +494,8 @@ def _cross_check(m: Model) -> list[tuple[str, str]]:
     # every pulse edge is a landing time, so a fast pulse forces steps of its own
     profiles = [(f"heat_loads[{i}].profile", hl.profile) for i, hl in enumerate(m.heat_loads)]
     profiles += [(f"convection[{i}].ambient_c", c.ambient_c) for i, c in enumerate(m.convection)]
+    profiles += [(f"convection[{i}].surroundings_c", c.surroundings_c) for i, c in enumerate(m.convection)]
+    profiles += [(f"surface_loads[{i}].flux_w_m2", s.flux_w_m2) for i, s in enumerate(m.surface_loads)]
     for path, p in profiles:
         if p is None or p.type != "pulse" or p.high == p.low or p.duty >= 1.0:
             continue

@@ -107,6 +107,7 @@ def make_periodic(problem, period: float) -> None:
     """Replace the problem's profiles by their always-repeating versions (in place)."""
     problem.heat_profiles = [(p, _periodic_profile(f, period)) for p, f in problem.heat_profiles]
     problem.conv_loads = [(b, _periodic_profile(a, period)) for b, a in problem.conv_loads]
+    problem.surface_loads = [(s, _periodic_profile(f, period)) for s, f in problem.surface_loads]
     problem._basis = None
 
 

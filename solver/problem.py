@@ -1,7 +1,8 @@
 """From a validated model to the semi-discrete system M d' + K d = F(t).
 
-``F(t) = Σ_loads P(t)·s_part + Σ_convection b_c·T_amb,c(t)``, where ``s_part`` spreads a part's
-watts over its volume and ``b_c = ∫ h Nᵢ dA`` over that convection entry's faces.
+``F(t) = Σ_loads P(t)·s_part + Σ_surface Q_s(t)·s_s + Σ_convection b_c·T_amb,c(t)``, where ``s_part``
+spreads a part's watts over its volume, ``s_s = ∫ α Nᵢ dA / (α A)`` a surface load's absorbed watts
+``Q_s = α A q''(t)`` over its faces, and ``b_c = ∫ h Nᵢ dA`` over that convection entry's faces.
 Temperatures in °C (the problem is linear, so offsets are exact), SI elsewhere.
 """
 from __future__ import annotations
@@ -12,10 +13,13 @@ import numpy as np
 import scipy.sparse as sp
 
 from . import assemble
+from .airnodes import build_air, coupling_matrix
+from .contacts import contact_resistance_grid, effective_conductivity
 from .errors import ModelError
-from .mesh import MM, Mesh, build_mesh, convection_face_mask, isolated_parts
+from .mesh import MM, SIDE_AXIS, Mesh, build_mesh, convection_face_mask, isolated_parts
 from .probes import probe_matrix
-from .profiles import Constant, ProfileFunction, make_profile
+from .radiation import build_radiation
+from .profiles import Constant, ProfileFunction, make_profile, scaled
 
 
 @dataclass
@@ -63,10 +67,24 @@ class Problem:
     part_volume: np.ndarray  # m³
     warnings: list = field(default_factory=list)
     pattern: object = None  # assemble.GridPattern shared by every matrix above (None: general matrices)
+    surface_loads: list = field(default_factory=list)  # (s (N,) summing to 1, ProfileFunction of absorbed W)
+    air: object = None  # solver.airnodes.AirNodes: unknowns after the mesh nodes (None: no air volume)
+    radiation: object = None  # solver.radiation.Radiation (None: linear model)
+
+    @property
+    def n_mesh(self) -> int:
+        """Mesh nodes (the field); ``n_nodes`` counts every unknown, air nodes included."""
+        return self.mesh.n_nodes
+
+    @property
+    def n_watt_loads(self) -> int:
+        """Load-basis columns whose coefficient is watts (heat loads, then surface loads)."""
+        return len(self.heat_profiles) + len(self.surface_loads)
 
     @property
     def n_nodes(self) -> int:
-        return self.mesh.n_nodes
+        """Unknowns of the system: mesh nodes, then one per air volume."""
+        return self.mesh.n_nodes + (len(self.air) if self.air is not None else 0)
 
     @property
     def heat_shares_t(self) -> sp.csr_matrix:
@@ -113,6 +131,7 @@ class Problem:
         """Sparse (N, L) matrix whose columns are the load vectors of heat loads and convection entries."""
         if getattr(self, "_basis", None) is None:
             cols = [self.heat_shares_t[:, [p]] for p, _ in self.heat_profiles]
+            cols += [sp.csr_matrix(s[:, None]) for s, _ in self.surface_loads]
             cols += [sp.csr_matrix(b[:, None]) for b, _ in self.conv_loads]
             n = self.n_nodes
             self._basis = sp.hstack(cols).tocsr() if cols else sp.csr_matrix((n, 0))
@@ -122,8 +141,10 @@ class Problem:
         return self._basis
 
     def load_coefficients(self, t: float, side: str = "right") -> np.ndarray:
-        """Profile values at ``t`` (W per heat load, then °C per convection entry): F = basis @ these."""
+        """Profile values at ``t`` (W per heat load, W absorbed per surface load, then °C per convection
+        entry): F = basis @ these."""
         return np.array([prof.value(t, side) for _, prof in self.heat_profiles]
+                        + [prof.value(t, side) for _, prof in self.surface_loads]
                         + [amb.value(t, side) for _, amb in self.conv_loads], dtype=float)
 
     def load_from_coefficients(self, c: np.ndarray) -> np.ndarray:
@@ -134,8 +155,9 @@ class Problem:
         return self.load_from_coefficients(self.load_coefficients(t, side))
 
     def heat_input(self, t: float, side: str = "right") -> float:
-        """Total heat generation in W."""
-        return float(sum(prof.value(t, side) for _, prof in self.heat_profiles))
+        """Total heat generation plus absorbed surface flux in W."""
+        return float(sum(prof.value(t, side) for _, prof in self.heat_profiles)
+                     + sum(prof.value(t, side) for _, prof in self.surface_loads))
 
     def convected_out(self, d: np.ndarray, t: float, side: str = "right") -> float:
         """Heat leaving through convection faces, W (Σ ∫ h (T - T_amb) dA)."""
@@ -150,10 +172,12 @@ class Problem:
 
     def breakpoints(self, t_end: float):
         out = []
-        for _, prof in self.heat_profiles:
+        for _, prof in self.heat_profiles + self.surface_loads:
             out += prof.breakpoints(t_end)
         for _, amb in self.conv_loads:
             out += amb.breakpoints(t_end)
+        if self.radiation is not None:
+            out += self.radiation.breakpoints(t_end)
         return out
 
 
@@ -189,6 +213,36 @@ def part_blocks(model, mesh: Mesh) -> list:
     return out
 
 
+def side_face_mask(mesh: Mesh, model, part_index: int, side: str) -> np.ndarray:
+    """Boundary triangles on a part's side (``x-`` … ``z+``, or ``exposed``), with the same meaning
+    as a convection entry's side (NOTES §3): the part's own cells, on its plane, not covered."""
+    bf = mesh.boundary
+    mask = bf.part == part_index
+    if side != "exposed":
+        ax, direction = SIDE_AXIS[side]
+        part = model.parts[part_index]
+        coord = (part.origin_mm[ax] + (part.size_mm[ax] if direction > 0 else 0.0)) * MM
+        mask &= (bf.axis == ax) & (bf.direction == direction) & (np.abs(bf.plane - coord) < 1e-9)
+    return mask
+
+
+def surface_load_columns(model, mesh: Mesh, warnings: list) -> list:
+    """(s (N,), absorbed-watts profile) per surface load with any face; ``s`` sums to one."""
+    out = []
+    bf = mesh.boundary
+    for sl in model.surface_loads:
+        mask = side_face_mask(mesh, model, model.part_index(sl.part), sl.side)
+        area = float(bf.area[mask].sum())
+        if area <= 0 or sl.absorptivity <= 0:
+            warnings.append(f"surface load {sl.name!r} ({sl.side} of {sl.part!r}) "
+                            + ("covers no exposed face" if area <= 0 else "has absorptivity 0") + "; it has no effect")
+            continue
+        tris = bf.tris[mask]
+        s = assemble.surface_load(mesh.nodes, tris, np.ones(len(tris)), bf.area[mask]) / area
+        out.append((s, scaled(make_profile(sl.flux_w_m2), sl.absorptivity * area)))
+    return out
+
+
 def build_problem(model, mesh: Mesh | None = None) -> Problem:
     """Mesh (unless given) and assemble everything the stepper needs.
 
@@ -204,6 +258,12 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
     pattern = assemble.GridPattern(mesh, full=model.run.mass == "consistent", surface_tris=conv_tri_all)
     h_cell = assemble.cell_sizes(mesh, pattern)
     k_cell, rc_cell = material_arrays(model, pattern.cell_part)
+    issues = []
+    contact_area = []
+    if model.contacts:
+        r_grid, contact_area, contact_issues = contact_resistance_grid(model, mesh)
+        issues += contact_issues
+        k_cell = effective_conductivity(k_cell, h_cell, r_grid[pattern.cell_index])
     kc = pattern.matrix(assemble.grid_conductivity_data(pattern, h_cell, k_cell))
     lumped = assemble.grid_lumped_capacity(pattern, h_cell, rc_cell)
     capacity = None
@@ -211,7 +271,6 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
         capacity = pattern.matrix(assemble.grid_capacity_data(pattern, h_cell, rc_cell))
 
     part_vol = np.bincount(pattern.cell_part, weights=h_cell.prod(axis=1), minlength=n_parts)
-    issues = []
     for i, p in enumerate(model.parts):
         if part_vol[i] <= 0:
             warnings.append(f"part {p.name!r} is entirely covered by later parts and holds no volume")
@@ -259,6 +318,13 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
             warnings.append("no path to any convection face from: " + ", ".join(repr(c) for c in cold)
                             + " (their temperature can only rise)")
 
+    surface = surface_load_columns(model, mesh, warnings)
+    air, couplings, air_issues, air_mask = build_air(model, mesh, side_face_mask, warnings)
+    issues += air_issues
+    if air is not None and conv_masks and (air_mask & np.logical_or.reduce(conv_masks)).any():
+        warnings.append("some faces exchange heat with an air volume and also convect to an ambient "
+                        "(check the convection entries' sides: \"exposed\" includes the inside of a cover)")
+
     points = [np.asarray(pr.at_mm, dtype=float) * MM for pr in model.probes]
     pmat, missing = probe_matrix(mesh, points)
     for k in missing:
@@ -271,6 +337,33 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
     counts = np.array([len(x) for x in ids_per_part], dtype=np.int64)
     offsets = np.concatenate([[0], np.cumsum(counts)[:-1]]).astype(np.int64)
     index = np.concatenate(ids_per_part) if n_parts else np.zeros(0, dtype=np.int64)
+    initial = initial_field(model, mesh, ids_per_part)
+    if air is not None:  # append the air unknowns (the matrices leave the grid pattern)
+        n_a = len(air)
+
+        def pad(m):
+            return sp.block_diag((m, sp.csr_matrix((n_a, n_a))), format="csr")
+
+        def pad_cols(m):
+            return sp.hstack([m, sp.csr_matrix((m.shape[0], n_a))], format="csr")
+
+        kc = pad(kc)
+        conv = (pad(conv) + coupling_matrix(mesh, air, couplings)).tocsr()
+        if capacity is not None:
+            capacity = (pad(capacity) + sp.diags(np.concatenate([np.zeros(n), air.capacity_j_k]))).tocsr()
+        lumped = np.concatenate([lumped, air.capacity_j_k])
+        shares, pmat = pad_cols(shares), pad_cols(pmat)
+        zeros = np.zeros(n_a)
+        conv_loads = [(np.concatenate([b, zeros]), amb) for b, amb in conv_loads]
+        surface = [(np.concatenate([s, zeros]), prof) for s, prof in surface]
+        initial = np.concatenate([initial, [float(model.initial_c if av.initial_c is None else av.initial_c)
+                                            for av in model.air_volumes]])
+    n_all = n + (len(air) if air is not None else 0)
+
+    def ambient_of(i):
+        c = model.convection[i]
+        return make_profile(c.ambient_c) if c.ambient_c is not None else Constant(float(model.ambient_c))
+
+    radiation = build_radiation(model, mesh, conv_masks, n_all, make_profile, ambient_of)
     return Problem(model, mesh, kc, conv, capacity, lumped, shares, heat_profiles, conv_loads, pmat,
-                   initial_field(model, mesh, ids_per_part), PartNodes(index, offsets, counts), part_vol, warnings,
-                   pattern)
+                   initial, PartNodes(index, offsets, counts), part_vol, warnings, pattern, surface, air, radiation)

@@ -52,7 +52,9 @@ def cell_conductivity(model, mesh: Mesh) -> np.ndarray:
     out = np.full(mesh.cell_part.shape + (3,), np.nan)
     solid = mesh.cell_part >= 0
     out[solid] = k_part[mesh.cell_part[solid]]
-    return out
+    from .contacts import cell_grid_conductivity  # contact layers lower the normal k beside interfaces
+
+    return cell_grid_conductivity(model, mesh, out)
 
 
 def _cell_gradient(tg: np.ndarray, widths: np.ndarray, ax: int) -> np.ndarray:

@@ -61,6 +61,7 @@ class RunRecorder:
     part_max_history: list = field(default_factory=list)
     part_mean_history: list = field(default_factory=list)
     probe_history: list = field(default_factory=list)
+    air_history: list = field(default_factory=list)  # (n_air,) °C per output time
     fields: list = field(default_factory=list)
     energy: dict = field(default_factory=lambda: {"in_j": 0.0, "out_j": 0.0, "stored_j": 0.0,
                                                   "max_residual_w": 0.0, "max_flow_w": 0.0})
@@ -78,6 +79,15 @@ class RunRecorder:
         self.steps_seen = 0
         self.peak_fields: dict = {}  # part index -> float32 field at that part's peak
         self._goal_mask = None
+        air = getattr(p, "air", None)
+        self.air_names = list(air.names) if air is not None else []
+        self.air_rated = np.array([np.nan if r is None else r for r in air.rated_c]) if air is not None else np.zeros(0)
+        na = len(self.air_names)
+        self.air_peak = np.full(na, -np.inf)
+        self.air_peak_time = np.zeros(na)
+        self.air_first_over = np.full(na, np.nan)
+        self.air_mean_integral = np.zeros(na)
+        self._prev_air = None
         if len(self.peak_field_parts):
             self._goal_mask = np.zeros(n, dtype=bool)
             self._goal_mask[list(self.peak_field_parts)] = True
@@ -107,6 +117,8 @@ class RunRecorder:
                 t0, m0, _ = self._prev
                 frac = (self.rated[over] - m0[over]) / np.where(pm[over] != m0[over], pm[over] - m0[over], 1.0)
                 self.first_over[over] = t0 + np.clip(frac, 0.0, 1.0) * (ev.time_s - t0)
+        if self.air_names:
+            self._add_air(ev)
         if self._prev is not None:
             t0, _, mean0 = self._prev
             self.mean_integral += 0.5 * (mean0 + ev.part_mean) * (ev.time_s - t0)
@@ -123,10 +135,31 @@ class RunRecorder:
             self.part_max_history.append(pm.copy())
             self.part_mean_history.append(ev.part_mean.copy())
             self.probe_history.append(np.asarray(ev.probes).copy())
+            if self.air_names:
+                self.air_history.append(np.asarray(ev.air, dtype=float).copy())
             if self.field_sink is not None:
                 self.field_sink(ev.time_s, ev.field)
             if self.keep_fields:
                 self.fields.append(np.asarray(ev.field, dtype=np.float32).copy())
+
+    def _add_air(self, ev) -> None:
+        """Peaks, first crossing and time mean of the air volumes (one temperature each)."""
+        a = np.asarray(ev.air, dtype=float)
+        better = a > self.air_peak
+        self.air_peak[better] = a[better]
+        self.air_peak_time[better] = ev.time_s
+        over = (a > self.air_rated) & np.isnan(self.air_first_over)
+        if over.any():
+            if self._prev_air is None:
+                self.air_first_over[over] = ev.time_s
+            else:
+                t0, a0 = self._prev_air
+                frac = (self.air_rated[over] - a0[over]) / np.where(a[over] != a0[over], a[over] - a0[over], 1.0)
+                self.air_first_over[over] = t0 + np.clip(frac, 0.0, 1.0) * (ev.time_s - t0)
+        if self._prev_air is not None:
+            t0, a0 = self._prev_air
+            self.air_mean_integral += 0.5 * (a0 + a) * (ev.time_s - t0)
+        self._prev_air = (ev.time_s, a.copy())
 
     @property
     def relative_energy_residual(self) -> float:
@@ -148,7 +181,20 @@ class RunRecorder:
                 first_over_s=None if np.isnan(self.first_over[i]) else float(self.first_over[i]),
                 hotspot_mm=(np.nan,) * 3 if empty else tuple(float(v) for v in self.hotspot[i]),
                 mean_over_time_c=float(self.mean_integral[i] / duration) if duration > 0 else float("nan")))
+        for j, name in enumerate(self.air_names):  # air volumes: their own rows, no hot spot
+            rated = None if np.isnan(self.air_rated[j]) else float(self.air_rated[j])
+            peak = float(self.air_peak[j])
+            rows.append(PeakRow(
+                part=name, rated_c=rated, peak_c=peak, peak_time_s=float(self.air_peak_time[j]),
+                margin_k=None if rated is None else rated - peak,
+                first_over_s=None if np.isnan(self.air_first_over[j]) else float(self.air_first_over[j]),
+                hotspot_mm=(np.nan,) * 3,
+                mean_over_time_c=float(self.air_mean_integral[j] / duration) if duration > 0 else float("nan")))
         return rows
+
+    def air_history_array(self) -> np.ndarray:
+        """(T, n_air) air temperatures at output times, °C."""
+        return np.array(self.air_history).reshape(len(self.times), len(self.air_names))
 
     def history_arrays(self):
         """times (T,), part maxima (T, P), probe values (T, K)."""

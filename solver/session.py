@@ -171,7 +171,8 @@ class RunSession:
             raise
         self._level_wall = time.perf_counter() - t0
         if self.cycle is not None and self.last_event is not None:
-            self.cycle.closure_k = float(np.abs(self.last_event.field - self.problem.initial).max())
+            f = self.last_event.field
+            self.cycle.closure_k = float(np.abs(f - self.problem.initial[:len(f)]).max())
 
     def _close_writer(self) -> None:
         """Finish an earlier level's writer (its errors are reported when the final one closes)."""
@@ -332,8 +333,8 @@ class RunSession:
         rows = self.recorder.peak_rows()
         err = self.peak_errors()
         if err is not None:
-            for i, r in enumerate(rows):
-                r.peak_error_k = float(err[i]) if np.isfinite(err[i]) else None
+            for r, e in zip(rows, err):  # parts first; air volume rows after them stay unestimated
+                r.peak_error_k = float(e) if np.isfinite(e) else None
         if self.folder is not None:
             d = self.folder.write_dir
             try:
@@ -347,7 +348,7 @@ class RunSession:
                                time.perf_counter() - self.t_start, accuracy=self.accuracy_record(),
                                field_files=self.written_files(),
                                field_write_s=getattr(self._series, "write_s", None))
-                info = {"model_sha256": model_hash(self.model), "nodes": int(self.problem.n_nodes),
+                info = {"model_sha256": model_hash(self.model), "nodes": int(self.problem.mesh.n_nodes),
                         "tetrahedra": int(self.problem.mesh.n_tets),
                         "frames": [{"time_s": float(t)} for t in self.recorder.times]}
                 written = self.written_files()

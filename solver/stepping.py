@@ -51,6 +51,7 @@ class StepEvent:
     energy_residual_w: float  # in − stored − out over the step, W (round-off for a direct solve)
     elapsed_s: float
     level: int = 0  # accuracy level (mesh) this event belongs to, set by solver.session
+    air: np.ndarray = dataclasses.field(default_factory=lambda: np.zeros(0))  # (n_air,) °C per air volume
 
     @property
     def fraction(self) -> float:
@@ -82,7 +83,7 @@ class LoadCombiner:
     def __init__(self, problem):
         self.p = problem
         self.basis = problem._load_basis()
-        self.n_heat = len(problem.heat_profiles)
+        self.n_heat = problem.n_watt_loads  # watt columns (heat loads, surface loads) come first
         self.conv_sum = problem._conv_sum
         # Σ_c b_c is non-zero on convection faces only: keep those entries for a short dot product
         self.conv_idx = np.flatnonzero(problem._conv_b)
@@ -133,6 +134,12 @@ class Stepper:
         self.reduced_info = None
         self.tolerance_k = tolerance_k if tolerance_k is not None else getattr(run, "tolerance_k", None)
         self.adaptive = self.tolerance_k is not None
+        if self.adaptive and getattr(problem, "radiation", None) is not None:
+            self.adaptive = False  # error-controlled steps are linear-only; radiation steps are fixed
+            msg = ("run.tolerance_k: adaptive steps are not available with radiation (emissivity), so fixed steps "
+                   "of run.step_s are taken, each solved by chord-Newton iterations")
+            if msg not in problem.warnings:
+                problem.warnings.append(msg)
         self.outputs = output_times(float(run.duration_s), run.output_interval_s)
         self.critical_step_s = None
         self._solvers: OrderedDict = OrderedDict()
@@ -158,6 +165,14 @@ class Stepper:
                                     problem.breakpoints(float(run.duration_s)), self.outputs, damp_after_jumps)
             self._n_steps_estimate = len(self.steps)
         self.method_choice = choose_run_method(self._run_shape(), requested)
+        self.newton = None  # radiation: iteration counts (see _run_radiative)
+        if getattr(problem, "radiation", None) is not None and requested != "full":
+            names = ", ".join(repr(n) for n in problem.radiation.names)
+            self.method_choice = dataclasses.replace(
+                self.method_choice, method="full",
+                reason=(f"run.method = {requested!r}, but radiation (emissivity on {names}) makes the model "
+                        "nonlinear and the reduced basis needs a linear one, so the full system is stepped "
+                        "(chord-Newton iterations in each step)"))
         self.method = self.method_choice.method
         if self.method == "reduced":
             self._full_plan = (self.scheme, self._n_steps_estimate)
@@ -175,7 +190,7 @@ class Stepper:
         for _, amb in p.conv_loads:  # convection entries sharing an ambient profile share a basis column
             if not any(amb == g for g in groups):
                 groups.append(amb)
-        shapes = len(p.heat_profiles) + len(groups) + (1 if np.ptp(p.initial) > 0.0 else 0)
+        shapes = p.n_watt_loads + len(groups) + (1 if np.ptp(p.initial) > 0.0 else 0)
         implicit = [s for s in self.steps if s.theta > 0.0]
         from .reduced import MAX_BASIS_BYTES, MAX_COLUMNS
 
@@ -195,6 +210,8 @@ class Stepper:
         else:
             matrices = max(1, len({(round(s.dt, 12), s.theta) for s in self.steps if s.theta > 0.0}))
             steps = len(self.steps)
+            if getattr(p, "radiation", None) is not None:
+                steps *= 3  # solves, not steps: radiation takes 2-3 chord iterations per step (docs/physics.md)
         explicit = self.method == "full" and not self.adaptive and self.theta == 0.0  # diagonal solves only
         factor_bytes = None
         if not explicit and needs_analysis(p.n_nodes, requested, adaptive, matrices):
@@ -272,10 +289,12 @@ class Stepper:
     # ------------------------------------------------------------ events
     def _event(self, step, n_steps, t, dt, d, is_output, q_in, q_out, stored, resid, t_start) -> StepEvent:
         p = self.problem
-        view = d.view()
+        n_m = p.n_mesh
+        view = d[:n_m] if len(d) > n_m else d.view()  # the field: mesh nodes only (air values in .air)
         view.flags.writeable = False
         return StepEvent(step, n_steps, t, dt, view, p.part_nodes.maxima(d), p.heat_shares @ d,
-                         p.probes @ d, is_output, q_in, q_out, stored, resid, _time.perf_counter() - t_start)
+                         p.probes @ d, is_output, q_in, q_out, stored, resid, _time.perf_counter() - t_start,
+                         air=d[n_m:].copy())
 
     def __iter__(self) -> Iterator[StepEvent]:
         if self.method == "reduced":
@@ -293,6 +312,11 @@ class Stepper:
         return self._run_fixed()
 
     def _run_fixed(self) -> Iterator[StepEvent]:
+        if getattr(self.problem, "radiation", None) is not None:
+            return self._run_radiative()
+        return self._run_linear()
+
+    def _run_linear(self) -> Iterator[StepEvent]:
         p = self.problem
         t_start = _time.perf_counter()
         k_mat = p.stiffness
@@ -339,6 +363,159 @@ class Stepper:
                 prev2, prev = prev, (d, dt)
                 d, bd = d_new, bd_new
                 yield self._event(i, n_steps, st.t1, dt, d, st.output, q_in, q_out, stored, resid, t_start)
+        finally:
+            self.close()
+
+
+    # ------------------------------------------------------------ radiation (nonlinear)
+    def _rad_solver(self, dt: float, theta: float):
+        """Factor of M/Δt + θ(K + diag(slope)) at the current linearisation (cached per Δt, θ)."""
+        key = (dt, theta, "rad", self._lin_version)
+        s = self._solvers.get(key)
+        if s is not None:
+            self._solvers.move_to_end(key)
+            return s
+        p = self.problem
+        a = self.step_matrix(dt, theta)
+        shared = p.pattern is not None and p._shares_pattern()
+        if shared:
+            data = a.data.copy()
+            data[p.pattern.diagonal] += theta * self._lin
+            a = p.pattern.matrix(data)
+        else:
+            a = (a + sp.diags(theta * self._lin)).tocsr()
+        # the chord iterations compute the residual in double precision, so a single-precision factor
+        # needs no refinement of its own here (its error is one more thing the iterations contract)
+        s = make_solver(a, self.choice.method, upper=p.pattern.upper() if shared else None, refine=False)
+        self.factorizations += 1
+        limit = MAX_CACHED_SOLVERS_SMALL if p.n_nodes < SMALL_PROBLEM_NODES else MAX_CACHED_SOLVERS
+        while len(self._solvers) >= limit:
+            _, old = self._solvers.popitem(last=False)
+            old.close()
+        self._solvers[key] = s
+        return s
+
+    def _relinearise(self, d: np.ndarray) -> None:
+        """Update the radiative slope at ``d`` and drop the factors built on the old one."""
+        self._lin = self.problem.radiation.slope(d)
+        self._lin_version += 1
+        self.newton["relinearisations"] += 1
+        for key in [k for k in self._solvers if len(k) == 4]:
+            self._solvers.pop(key).close()
+
+    def _rad_substep(self, d0: np.ndarray, t0: float, t1: float, side0: str, side1: str, theta: float,
+                     loads: "LoadCombiner", guess: np.ndarray | None = None):
+        """One θ step with radiation, solved by chord-Newton; (d1, heat in W, heat out W) averaged
+        over the step, or None when it does not converge."""
+        from .radiation import MAX_CHORD, MAX_ITER, MIN_CONTRACTION, NEWTON_TOL_K
+
+        p, rad = self.problem, self.problem.radiation
+        dt = canonical_step(t1 - t0)
+        k_mat = p.stiffness
+        c0, c1 = loads.coefficients(t0, side0), loads.coefficients(t1, side1)
+        ts0, ts1 = rad.ts4(t0, side0), rad.ts4(t1, side1)
+        rhs = self.mass_times(d0) / dt + loads.force(theta * c1 + (1.0 - theta) * c0)
+        if theta < 1.0:
+            rhs -= (1.0 - theta) * (k_mat @ d0 + rad.node_flow(d0, ts0))
+        x = d0.copy() if guess is None else guess.copy()
+        prev_change, chord = None, 0
+        solver = self._rad_solver(dt, theta)
+        for _ in range(MAX_ITER):
+            g = self.mass_times(x) / dt + theta * (k_mat @ x + rad.node_flow(x, ts1)) - rhs
+            dx = solver.solve(-g)
+            self.solves += 1
+            self.newton["iterations"] += 1
+            x = x + dx
+            if not np.all(np.isfinite(x)):
+                return None
+            change = float(np.abs(dx).max())
+            # converged: the last change, or the error left after it (the observed contraction
+            # ρ leaves at most ρ/(1 − ρ) of it), is below the tolerance
+            rho = change / prev_change if prev_change else 1.0
+            if change < NEWTON_TOL_K or (rho < 0.5 and rho / (1.0 - rho) * change < 1e-3 * NEWTON_TOL_K):
+                q_in = theta * loads.heat_in(c1) + (1 - theta) * loads.heat_in(c0)
+                q_out = (theta * (loads.convected_out(loads.bd(x), c1) + rad.total(x, ts1))
+                         + (1 - theta) * (loads.convected_out(loads.bd(d0), c0) + rad.total(d0, ts0)))
+                return x, q_in, q_out
+            chord += 1
+            slow = prev_change is not None and change > MIN_CONTRACTION * prev_change and change > 100 * NEWTON_TOL_K
+            if slow or chord >= MAX_CHORD:
+                self._relinearise(x)
+                solver = self._rad_solver(dt, theta)
+                chord, prev_change = 0, None
+            else:
+                prev_change = change
+        return None
+
+    def _rad_step(self, d: np.ndarray, st, loads, guess=None):
+        """A planned step, cut into 2, 4, ... sub-steps while the iterations do not converge;
+        ``guess``: a start for the iterations of the uncut step (extrapolated in time)."""
+        from .radiation import MAX_CUTS
+
+        for cut in range(MAX_CUTS + 1):
+            n_sub = 2 ** cut
+            ts = np.linspace(st.t0, st.t1, n_sub + 1)
+            x, q_in, q_out, ok = d, 0.0, 0.0, True
+            for j in range(n_sub):
+                r = self._rad_substep(x, float(ts[j]), float(ts[j + 1]), "right" if j == 0 else "left",
+                                      "left", st.theta, loads, guess if n_sub == 1 else None)
+                if r is None:
+                    ok = False
+                    break
+                x, qi, qo = r
+                q_in += qi / n_sub
+                q_out += qo / n_sub
+            if ok:
+                if cut:
+                    self.newton["cut_steps"] += 1
+                return x, q_in, q_out
+        names = ", ".join(repr(n) for n in self.problem.radiation.names)
+        raise SolveError(f"the radiation iterations did not converge at t = {st.t1:g} s, even with the step cut "
+                         f"into {2 ** MAX_CUTS} parts (radiating faces of convection {names}); check the "
+                         "temperatures and emissivities there, or use a shorter run.step_s")
+
+    def _run_radiative(self) -> Iterator[StepEvent]:
+        """Fixed θ steps of the nonlinear system with radiation (solver/radiation.py)."""
+        p, rad = self.problem, self.problem.radiation
+        t_start = _time.perf_counter()
+        loads = LoadCombiner(p)
+        n_steps = self.n_steps
+        d = p.initial.astype(float).copy()
+        c0 = loads.coefficients(0.0, "right")
+        q_in0 = loads.heat_in(c0)
+        q_out0 = loads.convected_out(loads.bd(d), c0) + rad.total(d, rad.ts4(0.0, "right"))
+        self.newton = {"iterations": 0, "relinearisations": 0, "cut_steps": 0, "tolerance_k": None}
+        from .radiation import NEWTON_TOL_K
+
+        self.newton["tolerance_k"] = NEWTON_TOL_K
+        self._lin = rad.slope(d)
+        self._lin_version = 0
+        yield self._event(0, n_steps, 0.0, 0.0, d, True, q_in0, q_out0, q_in0 - q_out0, 0.0, t_start)
+        lumped = p.lumped
+        prev = None  # (field before the last step, its step)
+        jumps = np.array(sorted(b.time_s for b in p.breakpoints(float(p.model.run.duration_s)) if b.jump))
+        from .radiation import SLOPE_DRIFT
+
+        rad_nodes = np.unique(rad.nodes)
+        try:
+            for i, st in enumerate(self.steps, start=1):
+                if self.cancel is not None and self.cancel():
+                    raise Cancelled(f"cancelled at t = {st.t0:g} s")
+                dt = canonical_step(st.dt)
+                # start the iterations from the linear extrapolation in time (same step, no jump between)
+                after_jump = len(jumps) and float(np.abs(jumps - st.t0).min()) < 1e-9
+                guess = d + (d - prev[0]) * (dt / prev[1]) if prev is not None and not after_jump else None
+                d_new, q_in, q_out = self._rad_step(d, st, loads, guess)
+                # keep the factored slope within SLOPE_DRIFT of the true one (fast contraction, and a
+                # last iteration whose slope error leaves almost nothing in the energy balance)
+                on = rad_nodes
+                if (np.abs(rad.slope(d_new)[on] - self._lin[on]) > SLOPE_DRIFT * self._lin[on]).any():
+                    self._relinearise(d_new)
+                stored = float(np.einsum("i,i->", lumped, d_new - d)) / dt
+                prev = (d, dt)
+                d = d_new
+                yield self._event(i, n_steps, st.t1, dt, d, st.output, q_in, q_out, stored, q_in - q_out - stored,
+                                  t_start)
         finally:
             self.close()
 

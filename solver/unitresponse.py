@@ -173,5 +173,8 @@ def require_linear(model) -> None:
         if eps is not None and float(eps) > 0:
             issues.append((f"convection[{i}].emissivity", "radiation makes the model nonlinear, so unit "
                                                           "responses cannot be superposed; remove it for this answer"))
+    if getattr(model, "air_volumes", None):
+        issues.append(("air_volumes", "air volumes (lumped air nodes) are not supported by this answer yet; "
+                                      "remove air_volumes for it, or run the model with `thermgui solve`"))
     if issues:
         raise ModelError(issues)

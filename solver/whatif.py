@@ -58,6 +58,8 @@ class UnitResponses:
 
     def coordinates(self, scales, ambient_offset: float = 0.0) -> np.ndarray:
         s = np.asarray(scales, dtype=float)
+        if len(s) < self.q_loads.shape[0]:  # surface loads follow the heat loads and are not scaled
+            s = np.concatenate([s, np.ones(self.q_loads.shape[0] - len(s))])
         q = self.q_init + self.q_amb + float(ambient_offset) * self.q_shift
         if len(s):
             q = q + np.tensordot(s, self.q_loads, axes=1)
@@ -147,7 +149,7 @@ def compute_unit_responses(problem, method: str = "pardiso", tol_k: float = TOL_
     require_linear(problem.model)
     run = problem.model.run
     grid = SampleGrid(problem)
-    n_heat = len(problem.heat_profiles)
+    n_heat = problem.n_watt_loads  # heat loads, then surface loads (kept at scale 1 by evaluate)
     n_s = len(grid.times)
     coarse = np.unique(np.concatenate([np.flatnonzero(grid.is_output),
                                        np.linspace(0, n_s - 1, min(n_s, 60)).round().astype(int)]))

@@ -221,3 +221,26 @@ def test_points_on_any_face_of_the_box_are_outside():
         assert on_outer_box(p, nodes), p
         assert revealing_cut_z(p, nodes) is None
     assert not on_outer_box((60, 40, 20), nodes)
+
+
+def test_air_volume_in_the_store_live_and_reopened(tmp_path):
+    """Air temperatures reach the chart's series live (as the worker sends them: part maxima, then
+    air) and from a reopened folder (the air:<name> column of history.csv)."""
+    from test_air_volumes import box
+
+    model = parse_model(box(duration_s=300.0))
+    save_model(model, tmp_path / "box.json")
+    solve_to_folder(tmp_path / "box.json", tmp_path / "out", quiet=True)
+    session = RunSession(model, None, tolerance_k=False)
+    live = ResultsStore.for_problem(session.problem)
+    for ev in session.events():
+        if ev.is_output:
+            live.add_frame(ev.time_s, ev.field, np.concatenate([ev.part_max, ev.air]))
+    names, times, values = live.series()
+    assert names[-1] == "inside air" and values.shape == (len(times), len(model.parts) + 1)
+    assert values[0, -1] == 40.0 and live.rating("inside air") == 40.5
+    back = ResultsStore.from_finished(load_run(tmp_path / "out"))
+    names_b, times_b, values_b = back.series()
+    assert names_b == names and np.allclose(times_b, times)
+    assert np.allclose(values_b[:, -1], values[:, -1], atol=1e-4)  # history.csv keeps 4 decimals
+    assert "inside air" in {r[0] for r in back.peak_rows}

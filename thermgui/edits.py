@@ -11,8 +11,9 @@ import copy
 
 from solver.materials import BUILTIN_MATERIALS
 
-KINDS = ("parts", "heat_loads", "convection", "probes", "materials")
-LIST_KINDS = KINDS[:4]  # "materials" is a name -> properties object in the file, a list here
+KINDS = ("parts", "heat_loads", "convection", "surface_loads", "contacts", "air_volumes", "probes", "materials")
+LIST_KINDS = KINDS[:-1]  # "materials" is a name -> properties object in the file, a list here
+PART_REFS = ("heat_loads", "convection", "surface_loads")  # kinds whose items name one part in "part"
 FACES = ("x-", "x+", "y-", "y+", "z-", "z+")
 
 
@@ -85,6 +86,17 @@ def new_item(d: dict, kind: str, near_part: str | None = None) -> dict:
     if kind == "convection":
         return {"name": unique_name("new face", names_of(d, "convection")), "part": first, "side": "exposed",
                 "h": 8.0}
+    if kind == "surface_loads":
+        return {"name": unique_name("sun", names_of(d, "surface_loads")), "part": first, "side": "z+",
+                "flux_w_m2": {"type": "constant", "value": 800.0}, "absorptivity": 0.5}
+    if kind == "contacts":
+        other = _touching_part(d, first)
+        return {"name": unique_name("contact", names_of(d, "contacts")), "parts": [first, other],
+                "resistance_k_m2_w": 2e-4}
+    if kind == "air_volumes":
+        names = names_of(d, "parts")
+        return {"name": unique_name("inside air", names_of(d, "air_volumes") + names), "enclosed_by": names,
+                "faces": [{"part": n, "side": "exposed", "h": 3.0} for n in names]}
     if kind == "materials":
         base = None
         if near_part and near_part in names_of(d, "parts"):
@@ -101,6 +113,42 @@ def new_item(d: dict, kind: str, near_part: str | None = None) -> dict:
             at = [(lo[a] + hi[a]) / 2 for a in range(3)]
         return {"name": unique_name("new probe", names_of(d, "probes")), "at_mm": at}
     raise KeyError(kind)
+
+
+def shared_faces(d: dict, a: str, b: str) -> list[tuple[int, float, list, list]]:
+    """Rectangles where the boxes of parts ``a`` and ``b`` touch: (axis, plane mm, lo, hi) with lo, hi
+    the rectangle's corners (mm, three values; the axis' own entry equals the plane). Geometry of the
+    boxes only (what later parts cover is not taken off)."""
+    parts = {p["name"]: p for p in d.get("parts", [])}
+    if a not in parts or b not in parts:
+        return []
+    pa, pb = parts[a], parts[b]
+    alo, ahi = pa["origin_mm"], [pa["origin_mm"][k] + pa["size_mm"][k] for k in range(3)]
+    blo, bhi = pb["origin_mm"], [pb["origin_mm"][k] + pb["size_mm"][k] for k in range(3)]
+    out = []
+    for ax in range(3):
+        for plane in {ahi[ax], alo[ax]}:
+            if not (abs(plane - blo[ax]) < 1e-9 or abs(plane - bhi[ax]) < 1e-9):
+                continue
+            lo = [max(alo[k], blo[k]) for k in range(3)]
+            hi = [min(ahi[k], bhi[k]) for k in range(3)]
+            if all(hi[k] > lo[k] for k in range(3) if k != ax):
+                lo[ax] = hi[ax] = plane
+                out.append((ax, plane, lo, hi))
+    return out
+
+
+def _touching_part(d: dict, name: str) -> str:
+    """A part whose box shares a face with part ``name`` (the first found), else another part."""
+    parts = d.get("parts", [])
+    me = next((p for p in parts if p["name"] == name), None)
+    others = [p for p in parts if p["name"] != name]
+    if me is None or not others:
+        return name
+    for p in others:
+        if shared_faces(d, name, p["name"]):
+            return p["name"]
+    return others[0]["name"]
 
 
 def _material_spec(d: dict, name: str | None) -> dict | None:
@@ -155,17 +203,26 @@ def rename_item(d: dict, kind: str, index: int, new_name: str) -> dict:
     old = out[kind][index].get("name")
     out[kind][index]["name"] = new_name
     if kind == "parts":
-        for ref_kind in ("heat_loads", "convection"):
+        for ref_kind in PART_REFS:
             for it in out.get(ref_kind, []):
                 if it.get("part") == old:
                     it["part"] = new_name
+        for ct in out.get("contacts", []):
+            ct["parts"] = [new_name if n == old else n for n in ct.get("parts", [])]
+        for av in out.get("air_volumes", []):
+            av["enclosed_by"] = [new_name if n == old else n for n in av.get("enclosed_by", [])]
+            for f in av.get("faces", []):
+                if f.get("part") == old:
+                    f["part"] = new_name
     return out
 
 
 def dependents(d: dict, part_name: str) -> dict[str, list[int]]:
-    """Indices of heat loads and convection faces that refer to a part."""
-    return {k: [i for i, it in enumerate(d.get(k, [])) if it.get("part") == part_name]
-            for k in ("heat_loads", "convection")}
+    """Indices of heat loads, convection faces, surface loads and contacts that refer to a part
+    (they go with it when it is deleted)."""
+    out = {k: [i for i, it in enumerate(d.get(k, [])) if it.get("part") == part_name] for k in PART_REFS}
+    out["contacts"] = [i for i, it in enumerate(d.get("contacts", [])) if part_name in it.get("parts", [])]
+    return out
 
 
 def delete_item(d: dict, kind: str, index: int) -> dict:
@@ -179,8 +236,19 @@ def delete_item(d: dict, kind: str, index: int) -> dict:
     item = out[kind].pop(index)
     if kind == "parts":
         name = item.get("name")
-        for ref_kind in ("heat_loads", "convection"):
-            out[ref_kind] = [it for it in out.get(ref_kind, []) if it.get("part") != name]
+        for ref_kind in PART_REFS:
+            if ref_kind in out:
+                out[ref_kind] = [it for it in out[ref_kind] if it.get("part") != name]
+        if "contacts" in out:
+            out["contacts"] = [it for it in out["contacts"] if name not in it.get("parts", [])]
+        if "air_volumes" in out:  # the air keeps its other walls and faces; with no face left it goes
+            kept = []
+            for av in out["air_volumes"]:
+                av["enclosed_by"] = [n for n in av.get("enclosed_by", []) if n != name]
+                av["faces"] = [f for f in av.get("faces", []) if f.get("part") != name]
+                if av["faces"]:
+                    kept.append(av)
+            out["air_volumes"] = kept
     return out
 
 
@@ -251,6 +319,8 @@ def place_onto(d: dict, index: int, target: int, face: str) -> dict:
 def item_label(d: dict, kind: str, index: int) -> str:
     """Short text for lists: the name, or for heat loads the part and the profile in watts."""
     it = items_of(d, kind)[index]
+    if kind == "contacts" and not it.get("name"):
+        return " – ".join(it.get("parts", ["?", "?"]))
     if kind != "heat_loads":
         return it.get("name", "?")
     return f"{it.get('part', '?')}: {profile_summary(it.get('profile', {}), 'W')}"

@@ -15,6 +15,7 @@ from .edits import item_label
 
 ROLE = Qt.UserRole
 GROUPS = [("parts", "Parts"), ("heat_loads", "Heat loads"), ("convection", "Convection faces"),
+          ("surface_loads", "Surface fluxes"), ("contacts", "Contacts"), ("air_volumes", "Inside air"),
           ("probes", "Probes"), ("materials", "Own materials")]
 STUDY_LABEL = "Study settings"
 MARK_COLOUR = QColor("#b0102f")  # over rating

@@ -26,7 +26,8 @@ CAUTION = ("Results are engineering estimates from a conduction model with assum
            "coefficients. Confirm them by measurement on real hardware, and defer to the applicable "
            "safety standards, codes and licensed practice before relying on them.")
 KIND_WORDS = {"parts": "part", "heat_loads": "heat load", "convection": "convection face", "probes": "probe",
-              "materials": "material"}
+              "materials": "material", "surface_loads": "surface flux", "contacts": "contact",
+              "air_volumes": "inside air volume"}
 
 
 class _FixedTextAction(QAction):
@@ -93,8 +94,8 @@ class MainWindow(QMainWindow):
         self._build_toolbar()
         self.item_tree.setContextMenuPolicy(Qt.ActionsContextMenu)
         a = self.actions_
-        for key in ("add_part", "add_load", "add_face", "add_probe", "add_material", None, "duplicate", "rename", "delete", None,
-                    "place"):
+        for key in ("add_part", "add_load", "add_face", "add_flux", "add_contact", "add_air", "add_probe",
+                    "add_material", None, "duplicate", "rename", "delete", None, "place"):
             if key is None:
                 sep = QAction(self)
                 sep.setSeparator(True)
@@ -185,6 +186,12 @@ class MainWindow(QMainWindow):
                   "Add a heat load to the selected part")
         self._act("add_face", "Add &Convection Face", lambda: self.add_item("convection"), "Ctrl+Shift+C", None,
                   "Add a convection face to the selected part")
+        self._act("add_flux", "Add &Surface Flux", lambda: self.add_item("surface_loads"), None, None,
+                  "Add a surface heat flux (for example sun) on the selected part")
+        self._act("add_contact", "Add Con&tact", lambda: self.add_item("contacts"), None, None,
+                  "Add a contact resistance between the selected part and a part it touches")
+        self._act("add_air", "Add Inside &Air", lambda: self.add_item("air_volumes"), None, None,
+                  "Add the air enclosed by the model's parts as one temperature")
         self._act("add_probe", "Add Pro&be", lambda: self.add_item("probes"), "Ctrl+Shift+R", None,
                   "Add a temperature probe at the selected part's centre")
         self._act("add_material", "Add &Material", lambda: self.add_item("materials"), "Ctrl+Shift+M", None,
@@ -226,7 +233,8 @@ class MainWindow(QMainWindow):
         m = self.menus["edit"] = mb.addMenu("&Edit")
         m.addActions([a["undo"], a["redo"]])
         m.addSeparator()
-        m.addActions([a["add_part"], a["add_load"], a["add_face"], a["add_probe"], a["add_material"]])
+        m.addActions([a["add_part"], a["add_load"], a["add_face"], a["add_flux"], a["add_contact"], a["add_air"],
+                      a["add_probe"], a["add_material"]])
         m.addSeparator()
         m.addActions([a["duplicate"], a["rename"], a["delete"]])
         m.addSeparator()
@@ -320,7 +328,7 @@ class MainWindow(QMainWindow):
         item = sel is not None and sel[0] in edits.KINDS and sel[1] >= 0
         for k in ("duplicate", "delete"):
             self.actions_[k].setEnabled(item)
-        self.actions_["rename"].setEnabled(item and sel[0] != "heat_loads")
+        self.actions_["rename"].setEnabled(item and sel[0] not in ("heat_loads", "contacts"))
         self.actions_["place"].setEnabled(item and sel[0] == "parts" and len(self.document.model.parts) > 1)
 
     # ------------------------------------------------------------ selection
@@ -335,7 +343,7 @@ class MainWindow(QMainWindow):
         d = self.document.model_dict()
         if sel[0] == "parts":
             return d["parts"][sel[1]]["name"]
-        if sel[0] in ("heat_loads", "convection"):
+        if sel[0] in ("heat_loads", "convection", "surface_loads"):
             return d[sel[0]][sel[1]]["part"]
         return None
 
@@ -352,9 +360,18 @@ class MainWindow(QMainWindow):
     def _sync_view_selection(self):
         self.viewport.select_part(self.selected_part_name())
         sel = self.selection()
-        if sel and sel[0] == "convection" and sel[1] >= 0:
-            c = self.document.model.convection[sel[1]]
+        if sel and sel[0] in ("convection", "surface_loads") and sel[1] >= 0:
+            c = getattr(self.document.model, sel[0])[sel[1]]
             self.viewport.show_face(c.part, c.side)
+        elif sel and sel[0] == "contacts" and sel[1] >= 0:
+            ct = self.document.model.contacts[sel[1]]
+            rects = edits.shared_faces(self.document.model_dict(), *ct.parts)
+            if ct.side is not None:  # only the first part's face on that side
+                a = "xyz".index(ct.side[0])
+                p = self.document.model.parts[self.document.model.part_index(ct.parts[0])]
+                plane = p.origin_mm[a] + (p.size_mm[a] if ct.side[1] == "+" else 0.0)
+                rects = [r for r in rects if r[0] == a and abs(r[1] - plane) < 1e-9]
+            self.viewport.show_contact(rects)
         else:
             self.viewport.show_face(None)
 

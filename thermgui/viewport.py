@@ -275,6 +275,9 @@ class Viewport(QWidget):
         if self._face_actor is not None:
             self.plotter.remove_actor(self._face_actor, render=False)
             self._face_actor = None
+        if self._face and self._face[0] == "::contact" and self.mode == "edit":
+            self._show_rects(self._face[1])
+            return
         p = self._part(self._face[0]) if self._face else None
         if p is None or self.mode != "edit":
             return
@@ -298,7 +301,29 @@ class Viewport(QWidget):
         self._face_actor = self.plotter.add_mesh(quad, color=FACE_COLOUR, opacity=0.75, name="face::overlay",
                                                  render=False, pickable=False)
 
+    def _show_rects(self, rects) -> None:
+        """Tint flat rectangles (axis, plane, lo, hi) in mm: the faces of a contact."""
+        if not rects:
+            return
+        quads = []
+        for ax, plane, lo, hi in rects:
+            b, c = [k for k in range(3) if k != ax]
+            pts = np.zeros((4, 3))
+            pts[:, ax] = plane
+            pts[:, b] = [lo[b], hi[b], hi[b], lo[b]]
+            pts[:, c] = [lo[c], lo[c], hi[c], hi[c]]
+            quads.append(pv.PolyData(pts, faces=[4, 0, 1, 2, 3]))
+        mesh = quads[0] if len(quads) == 1 else quads[0].merge(quads[1:])
+        self._face_actor = self.plotter.add_mesh(mesh, color=FACE_COLOUR, opacity=0.85, name="face::overlay",
+                                                 render=False, pickable=False)
+
     # ------------------------------------------------------------ public API
+    def show_contact(self, rects) -> None:
+        """Tint the touching faces of a contact (rectangles from :func:`thermgui.edits.shared_faces`)."""
+        self._face = ("::contact", list(rects)) if rects else None
+        self._update_face()
+        self.refresh()
+
     def show_face(self, part: str | None, side: str | None = None) -> None:
         """Tint a convection face (``side`` of ``part``; "exposed" tints the whole part); None clears."""
         self._face = (part, side) if part else None

@@ -116,3 +116,29 @@ def test_own_materials_add_rename_delete(sample):
     with pytest.raises(ModelError) as e:
         parse_model(edits.delete_item(renamed, "materials", i))
     assert e.value.first_path == f"parts[{board}].material"
+
+
+def test_rename_and_delete_part_follow_contacts_fluxes_and_air(sample):
+    i = names(sample).index("lid")
+    new = edits.rename_item(sample, "parts", i, "top cover")
+    parse_model(new)
+    assert new["surface_loads"][0]["part"] == "top cover"
+    assert "top cover" in new["air_volumes"][0]["enclosed_by"] and "lid" not in new["air_volumes"][0]["enclosed_by"]
+    assert "top cover" in [f["part"] for f in new["air_volumes"][0]["faces"]]
+    j = names(sample).index("radio module")
+    gone = edits.delete_item(sample, "parts", j)
+    parse_model(gone)
+    assert all("radio module" not in c["parts"] for c in gone["contacts"])
+    assert "radio module" not in [f["part"] for f in gone["air_volumes"][0]["faces"]]
+    assert len(gone["contacts"]) == len(sample["contacts"]) - 1
+
+
+def test_shared_faces_of_touching_boxes(sample):
+    # the regulator (75..81, 40..46, 11.6..13.0) sits on the board's top (z = 11.6)
+    rects = edits.shared_faces(sample, "regulator", "main board")
+    assert len(rects) == 1
+    ax, plane, lo, hi = rects[0]
+    assert ax == 2 and plane == pytest.approx(11.6)
+    assert lo[:2] == pytest.approx([75, 40]) and hi[:2] == pytest.approx([81, 46])
+    assert edits.shared_faces(sample, "regulator", "lid") == []
+    assert edits.new_item(sample, "contacts", "regulator")["parts"] == ["regulator", "main board"]

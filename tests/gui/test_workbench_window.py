@@ -420,3 +420,39 @@ def test_table_profile_points(main_window):
     assert editor.table.item(1, 0).text() == "60"
     editor._add_point()
     assert len(w.document.model.heat_loads[1].profile.points) == 3
+
+
+def test_forms_of_the_new_physics_items(main_window):
+    """Surface flux, contact, inside air and radiation fields: shown from the sample, edited by typing."""
+    w = main_window
+    m = w.document.model
+    w.item_tree.select("surface_loads", 0)
+    f = w.properties.forms["surface_loads"]
+    assert w.properties.title.text() == "Surface flux · sun on the lid"
+    assert f.absorb.edit.text() == "0.25" and f.side.currentData() == "z+"
+    type_into(f.absorb.edit, "0.4")
+    assert w.document.model.surface_loads[0].absorptivity == 0.4
+    type_into(f.absorb.edit, "1.5")  # outside 0–1: refused, the model keeps 0.4
+    assert w.document.model.surface_loads[0].absorptivity == 0.4
+    errors = w.prompts.errors()
+    assert len(errors) == 1 and "Absorptivity" in errors[0] and "unchanged" in errors[0]
+    w.item_tree.select("contacts", 0)
+    c = w.properties.forms["contacts"]
+    assert c.first.currentText() == m.contacts[0].parts[0] and c.second.currentText() == m.contacts[0].parts[1]
+    type_into(c.res.edit, "0.001")
+    assert w.document.model.contacts[0].resistance == 0.001
+    assert w.viewport._face is not None and w.viewport._face[0] == "::contact"  # the touching faces are tinted
+    w.item_tree.select("air_volumes", 0)
+    a = w.properties.forms["air_volumes"]
+    type_into(a.rated.edit, "65")
+    assert w.document.model.air_volumes[0].rated_c == 65.0
+    k = [i for i, cv in enumerate(m.convection) if cv.name == "west outside"][0]
+    w.item_tree.select("convection", k)
+    cf = w.properties.forms["convection"]
+    assert cf.eps.edit.text() == "0.85"
+    cf.eps.edit.setFocus()
+    cf.eps.edit.clear()  # no radiation any more
+    QTest.keyClick(cf.eps.edit, Qt.Key_Return)
+    assert w.document.model.convection[k].emissivity is None
+    w.actions_["undo"].trigger()
+    assert w.document.model.convection[k].emissivity == 0.85

@@ -5,10 +5,12 @@ from PySide6.QtCore import Qt, Signal
 from PySide6.QtWidgets import QLabel, QScrollArea, QStackedWidget, QVBoxLayout, QWidget
 
 from .. import edits
-from .item_forms import ConvectionForm, HeatLoadForm, MaterialForm, PartForm, ProbeForm, StudyForm
+from .item_forms import (AirVolumeForm, ContactForm, ConvectionForm, HeatLoadForm, MaterialForm, PartForm,
+                         ProbeForm, StudyForm, SurfaceLoadForm)
 
 KIND_TITLES = {"parts": "Part", "heat_loads": "Heat load", "convection": "Convection face", "probes": "Probe",
-               "study": "Study settings", "materials": "Material"}
+               "study": "Study settings", "materials": "Material", "surface_loads": "Surface flux",
+               "contacts": "Contact", "air_volumes": "Inside air"}
 
 
 class PropertyPanel(QWidget):
@@ -35,7 +37,9 @@ class PropertyPanel(QWidget):
         self.empty.setMargin(8)
         self.stack.addWidget(self.empty)
         self.forms = {"parts": PartForm(self), "heat_loads": HeatLoadForm(self), "convection": ConvectionForm(self),
-                      "probes": ProbeForm(self), "study": StudyForm(self), "materials": MaterialForm(self)}
+                      "probes": ProbeForm(self), "study": StudyForm(self), "materials": MaterialForm(self),
+                      "surface_loads": SurfaceLoadForm(self), "contacts": ContactForm(self),
+                      "air_volumes": AirVolumeForm(self)}
         self._pages = {}
         for kind, f in self.forms.items():
             f.align_units()

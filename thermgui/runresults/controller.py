@@ -527,10 +527,10 @@ class ResultsController(LookInside, ResultFiles, QObject):
         s = self.store
         if s is None:
             return
-        names = [n for n in (self._chart_parts or []) if n in s.part_names]
+        all_names, times, pmax = s.series()  # parts, then air volumes
+        names = [n for n in (self._chart_parts or []) if n in all_names]
         if not names:
-            names = s.rated_parts() or list(s.part_names)
-        times, pmax = s.history()
+            names = (s.rated_parts() or list(s.part_names)) + list(s.air_names)
         verdicts, errors = {}, {}
         if s.peak_rows:
             k = PEAK_COLUMNS.index("status")
@@ -542,7 +542,7 @@ class ResultsController(LookInside, ResultFiles, QObject):
             extra = dict(reference=(times, pmax), heading=self.whatif.heading())
             times, pmax, verdicts = answer
             errors = {}
-        self.chart.show_parts(names, times, pmax, s.part_names, {n: s.rating(n) for n in names},
+        self.chart.show_parts(names, times, pmax, all_names, {n: s.rating(n) for n in names},
                               span_s=s.duration_s, verdicts=verdicts, errors=errors, **extra)
         if s.n_frames:
             self.chart.set_cursor(s.times[min(self.timeline.index, s.n_frames - 1)])

@@ -6,9 +6,9 @@ import re
 from solver.errors import Cancelled, ModelError, SolveError
 
 # Item groups of the model file, as used for ``(kind, index)`` by the item tree.
-ITEM_KINDS = ("parts", "heat_loads", "convection", "probes")
+ITEM_KINDS = ("parts", "heat_loads", "convection", "surface_loads", "contacts", "air_volumes", "probes")
 STUDY_KEYS = ("run", "mesh", "ambient_c", "initial_c", "title")
-_ITEM = re.compile(r"^(parts|heat_loads|convection|probes)\[(\d+)\]")
+_ITEM = re.compile(r"^(" + "|".join(ITEM_KINDS) + r")\[(\d+)\]")
 
 
 def item_for_path(path: str) -> tuple[str, int] | None:

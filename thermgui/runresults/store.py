@@ -40,6 +40,9 @@ class ResultsStore:
     part_max: list = field(default_factory=list)  # (P,) per output time
     peak_rows: list | None = None  # rows of peaks.csv as strings (after the run)
     complete: bool = False
+    air_names: list = field(default_factory=list)  # air volumes (one temperature each)
+    air_rated_c: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    air: list = field(default_factory=list)  # (A,) °C per output time
 
     def __post_init__(self):
         self._lo = np.inf
@@ -55,7 +58,9 @@ class ResultsStore:
                    part_names=[p.name for p in model.parts],
                    rated_c=np.array([np.nan if p.rated_c is None else p.rated_c for p in model.parts]),
                    part_bounds_mm={p.name: _bounds(p.origin_mm, p.size_mm) for p in model.parts},
-                   duration_s=float(model.run.duration_s), folder=Path(folder) if folder else None)
+                   duration_s=float(model.run.duration_s), folder=Path(folder) if folder else None,
+                   air_names=[a.name for a in model.air_volumes],
+                   air_rated_c=np.array([np.nan if a.rated_c is None else a.rated_c for a in model.air_volumes]))
 
     @classmethod
     def from_finished(cls, run) -> "ResultsStore":
@@ -70,7 +75,12 @@ class ResultsStore:
         store = cls(points_mm=np.asarray(geo["points_mm"], float), tets=np.asarray(geo["tets"]),
                     part_id=np.asarray(geo["part_id"]), part_names=names, rated_c=rated,
                     part_bounds_mm=bounds, duration_s=duration, folder=Path(run.folder))
+        airs = run.model_dict.get("air_volumes", [])
+        store.air_names = [a["name"] for a in airs if f"air:{a['name']}" in run.history_header]
+        by_air = {a["name"]: a for a in airs}
+        store.air_rated_c = np.array([float(by_air[n].get("rated_c", np.nan)) for n in store.air_names])
         cols = [run.history_header.index(f"max:{n}") for n in names]
+        cols += [run.history_header.index(f"air:{n}") for n in store.air_names]
         for i, t in enumerate(run.times):
             store.add_frame(float(t), run.field(i), run.history[i, cols] if i < len(run.history) else None)
         if run.series is not None:
@@ -84,6 +94,10 @@ class ResultsStore:
         f = np.asarray(field_c, dtype=np.float32)
         if part_max is None:
             part_max = self._part_max_of(f)
+        n = len(self.part_names)
+        values = np.asarray(part_max, dtype=float)
+        part_max, air = values[:n], values[n:]
+        self.air.append(air.copy() if len(air) == len(self.air_names) else np.full(len(self.air_names), np.nan))
         self.times.append(float(time_s))
         self.frames.append(f)
         self.part_max.append(np.asarray(part_max, dtype=float).copy())
@@ -186,8 +200,22 @@ class ResultsStore:
     def rated_parts(self) -> list:
         return [n for n, r in zip(self.part_names, self.rated_c) if np.isfinite(r)]
 
+    def series(self) -> tuple[list, np.ndarray, np.ndarray]:
+        """Names, output times (T,) s and values (T, P + A) °C of what the chart can show: every
+        part's maximum, then every air volume's temperature."""
+        times, pmax = self.history()
+        names = list(self.part_names) + list(self.air_names)
+        if not self.air_names:
+            return names, times, pmax
+        air = np.array(self.air).reshape(len(times), len(self.air_names))
+        return names, times, np.hstack([pmax.reshape(len(times), len(self.part_names)), air])
+
     def rating(self, name: str) -> float | None:
-        r = self.rated_c[self.part_names.index(name)]
+        """A part's or an air volume's rated temperature (°C), None when unrated."""
+        if name in self.air_names:
+            r = self.air_rated_c[self.air_names.index(name)]
+        else:
+            r = self.rated_c[self.part_names.index(name)]
         return None if not np.isfinite(r) else float(r)
 
     # ------------------------------------------------------------ export

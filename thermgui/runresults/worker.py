@@ -86,7 +86,9 @@ class RunWorker(QObject):
                     self.prepared.emit(session, extra)
                 now = time.perf_counter()
                 if ev.is_output:
-                    self.output.emit(ev.time_s, np.array(ev.field, dtype=np.float32), ev.part_max.copy())
+                    # part maxima, then the air volumes' temperatures (the store splits them)
+                    self.output.emit(ev.time_s, np.array(ev.field, dtype=np.float32),
+                                     np.concatenate([ev.part_max, getattr(ev, "air", np.zeros(0))]))
                     last_preview = now
                 elif now - last_preview >= self.preview_every_s:
                     self.preview.emit(ev.time_s, np.array(ev.field, dtype=np.float32))
