@@ -29,9 +29,9 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-import solver.mesh as mesh_module  # noqa: E402
-from solver.model import load_model  # noqa: E402
-from solver.session import RunSession  # noqa: E402
+import solver.mesh.mesher as mesh_module  # noqa: E402
+from solver.model.modelfile import load_model  # noqa: E402
+from solver.run.session import RunSession  # noqa: E402
 
 MODELS = {
     "relay": ROOT / "benchmarks" / "models" / "relay_box.json",

@@ -26,7 +26,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from scaled_model import cell_for_nodes, model_dict  # noqa: E402
 
 import solver  # noqa: E402
-from solver.session import RunSession  # noqa: E402
+from solver.run.session import RunSession  # noqa: E402
 
 PERIOD = 300.0
 
@@ -78,8 +78,8 @@ def bench_periodic(args) -> None:
 
 
 def bench_whatif(args) -> None:
-    from solver.linsolve import choose_method
-    from solver.whatif import compute_unit_responses, evaluate
+    from solver.linalg.linsolve import choose_method
+    from solver.answers.whatif import compute_unit_responses, evaluate
 
     cell = cell_for_nodes(args.nodes)
     m = solver.parse_model(model_dict(cell, duration_s=args.duration, step_s=1.0, scheme="crank-nicolson",
@@ -109,7 +109,7 @@ def bench_whatif(args) -> None:
 
 
 def bench_sweep(args) -> None:
-    from solver.sweep import sweep_to_folder
+    from solver.answers.sweep import sweep_to_folder
 
     cell = cell_for_nodes(args.nodes)
     with tempfile.TemporaryDirectory() as tmp:

@@ -7,7 +7,7 @@ written) against the scikit-fem + scipy ``splu`` baseline, measured in the same 
 
 Model: the benchmark enclosure (scaled_model.py, invented), Crank–Nicolson steps of 1 s, the
 run's method left to ``auto`` (the default), outputs every ``--output-every`` seconds. Ours is
-:func:`solver.cli.solve_to_folder` itself, with clocks around its phases: mesh, assembly, basis or
+:func:`solver.run.cli.solve_to_folder` itself, with clocks around its phases: mesh, assembly, basis or
 factorization, stepping (the events), writing (the field writer's own thread, which runs beside
 the stepping, and what is left to wait for at the end). The same run is repeated with
 ``--fields none``: the difference is what writing the fields costs the user in wall time.
@@ -52,11 +52,11 @@ def _model_file(args, folder: Path) -> Path:
 
 def run_ours(args, fields: str) -> dict:
     """solve_to_folder with clocks around its phases (the code run is the command's own)."""
-    import solver.session as session_mod
-    from solver import problem as problem_mod
-    from solver.cli import solve_to_folder
-    from solver.mesh import build_mesh
-    from solver.stepping import Stepper
+    import solver.run.session as session_mod
+    from solver.fem import problem as problem_mod
+    from solver.run.cli import solve_to_folder
+    from solver.mesh.mesher import build_mesh
+    from solver.transient.stepping import Stepper
 
     work = Path(args.workdir)
     model_path = _model_file(args, work)

@@ -9,17 +9,17 @@ in each candidate layout, on one thread, straight after one another (the page ca
 for every reader, as it is for a user who opens a run that just finished):
 
 - ``pvd-zlib``: field.pvd + one .vtu per frame with the whole mesh, zlib level 1 (the layout
-  written before; solver/vtkxml.py)
+  written before; solver/io/vtkxml.py)
 - ``pvd-raw``: the same, uncompressed (VTK XML cannot share one geometry between the files of
   a .pvd, so every frame still carries the mesh)
-- ``vtkhdf``: one VTKHDF file, static mesh, temperatures per step (solver/fieldseries.py), no
+- ``vtkhdf``: one VTKHDF file, static mesh, temperatures per step (solver/io/fieldseries.py), no
   compression
 - ``vtkhdf-gzip1``: the same with HDF5 gzip level 1 and byte shuffling
 - ``raw+vtu``: one geometry .vtu and one flat float32 file of all frames (only our own reader
   knows how they belong together)
 
 Open times: pyvista (``pv.get_reader``/``pv.read``: geometry and the first frame; then the last
-frame), VTK's vtkHDFReader for the VTKHDF steps, and our own reader (solver.fieldseries:
+frame), VTK's vtkHDFReader for the VTKHDF steps, and our own reader (solver.io.fieldseries:
 what the app uses). Each open runs in a fresh process. Not a test: nothing asserts.
 """
 from __future__ import annotations
@@ -46,8 +46,8 @@ CANDIDATES = ["pvd-zlib", "pvd-raw", "vtkhdf", "vtkhdf-gzip1", "raw+vtu"]
 
 def _problem(nodes: int):
     from scaled_model import cell_for_nodes, model_dict
-    from solver.model import parse_model
-    from solver.problem import build_problem
+    from solver.model.modelfile import parse_model
+    from solver.fem.problem import build_problem
 
     return build_problem(parse_model(model_dict(cell_for_nodes(nodes))))
 
@@ -63,7 +63,7 @@ def _frames(problem, n_frames: int):
 
 def _write_vtu_raw(path, points, tets, temp, part_id, t):
     """Uncompressed appended-raw .vtu (UInt64 size before each array)."""
-    from solver.vtkxml import VTK_TETRA
+    from solver.io.vtkxml import VTK_TETRA
 
     n, e = len(points), len(tets)
     arrays = [("PointData", "temperature_c", "Float32", 1, temp), ("CellData", "part_id", "Int32", 1, part_id),
@@ -93,9 +93,9 @@ def _write_vtu_raw(path, points, tets, temp, part_id, t):
 
 def write(kind: str, folder: Path, problem, n_frames: int) -> float:
     """Write ``n_frames`` in layout ``kind`` into ``folder``; wall seconds (including fsync-free close)."""
-    from solver.fieldseries import FieldWriter
-    from solver.mesh import MM
-    from solver.vtkxml import write_pvd, write_vtu
+    from solver.io.fieldseries import FieldWriter
+    from solver.mesh.mesher import MM
+    from solver.io.vtkxml import write_pvd, write_vtu
 
     pts, tets, pid = problem.mesh.nodes / MM, problem.mesh.tets, problem.mesh.tet_part.astype(np.int32)
     folder.mkdir(parents=True, exist_ok=True)
@@ -131,7 +131,7 @@ def open_timed(kind: str, folder: Path, how: str) -> dict:
     done before the clock starts)."""
     import pyvista as pv
 
-    from solver.fieldseries import open_field_series
+    from solver.io.fieldseries import open_field_series
 
     out = {}
     t0 = time.perf_counter()

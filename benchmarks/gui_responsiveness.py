@@ -29,8 +29,8 @@ sys.path.insert(0, str(ROOT))
 
 def refined_model(target_nodes: int, steps: int) -> dict:
     """The sample with the cell size chosen (by bisection) to give about ``target_nodes`` nodes."""
-    from solver.mesh import estimate_nodes
-    from solver.model import parse_model
+    from solver.mesh.mesher import estimate_nodes
+    from solver.model.modelfile import parse_model
 
     d = json.loads((ROOT / "samples" / "outdoor_radio_box.json").read_text())
     def nodes(cell):
@@ -51,7 +51,7 @@ def refined_model(target_nodes: int, steps: int) -> dict:
 def headless_seconds(model, out_dir) -> tuple[float, int]:
     """Wall time (s) from the first step event (after meshing, assembly and, in the app, building
     the display) to the last one: the stepping phase that the live view could slow down."""
-    from solver.session import RunSession
+    from solver.run.session import RunSession
 
     s = RunSession(model, out_dir)
     first = last = None
@@ -75,7 +75,7 @@ def main(argv=None) -> int:
     args = ap.parse_args(argv)
     os.environ.setdefault("THERMGUI_STATE_DIR", tempfile.mkdtemp(prefix="thermgui-bench-state-"))
 
-    from solver.model import parse_model, save_model
+    from solver.model.modelfile import parse_model, save_model
 
     work = Path(tempfile.mkdtemp(prefix="thermgui-bench-"))
     d = refined_model(args.nodes, args.steps)

@@ -4,7 +4,7 @@
     python3 benchmarks/run.py --size 1m --baseline-steps 3
     python3 benchmarks/run.py --size 50k --duration 600 --tolerance 0.1
 
-Ours: structured assembly (solver.problem.build_problem), automatic linear solver, adaptive
+Ours: structured assembly (solver.fem.problem.build_problem), automatic linear solver, adaptive
 TR-BDF2 steps with the given temperature tolerance. Baseline: the same model assembled with
 scikit-fem (P1 conduction and capacity, lumped by row sums, convection on the same faces) and
 stepped with scipy ``splu`` (default options) at a fixed Crank–Nicolson step of ``--baseline-step``
@@ -48,7 +48,7 @@ def _peak_mb() -> float:
 
 def _model(args):
     from scaled_model import cell_for_nodes, model_dict
-    from solver.model import parse_model
+    from solver.model.modelfile import parse_model
 
     cell = args.cell_mm or cell_for_nodes(SIZES[args.size])
     run = {"duration_s": args.duration, "step_s": args.first_step, "output_every_s": 60.0,
@@ -60,7 +60,7 @@ def _model(args):
 
 def _timed_mesh(args):
     """The scaled model and its mesh, with the cell size, meshing time and node count in ``out``."""
-    from solver.mesh import build_mesh
+    from solver.mesh.mesher import build_mesh
 
     model, cell = _model(args)
     out = {"cell_mm": cell}
@@ -82,9 +82,9 @@ def matvec_seconds(a, repeat: int = 20) -> float:
 
 # ---------------------------------------------------------------- ours
 def run_ours(args) -> dict:
-    from solver.problem import build_problem
-    from solver.results import RunRecorder
-    from solver.stepping import Stepper
+    from solver.fem.problem import build_problem
+    from solver.results.recorder import RunRecorder
+    from solver.transient.stepping import Stepper
 
     model, mesh, out = _timed_mesh(args)
     c = _clock()
@@ -144,8 +144,8 @@ def skfem_matrices(problem):
     from skfem import Basis, BilinearForm, ElementTetP1, FacetBasis, MeshTet
     from skfem.helpers import dot
 
-    from solver.mesh import convection_face_mask
-    from solver.problem import material_arrays
+    from solver.mesh.mesher import convection_face_mask
+    from solver.fem.problem import material_arrays
 
     mesh, model = problem.mesh, problem.model
     m = MeshTet(mesh.nodes.T.copy(), mesh.tets.T.copy())
@@ -191,8 +191,8 @@ def run_baseline(args) -> dict:
     import scipy.sparse as sp
     import scipy.sparse.linalg as spla
 
-    from solver.problem import build_problem
-    from solver.timegrid import output_times, plan_steps
+    from solver.fem.problem import build_problem
+    from solver.transient.timegrid import output_times, plan_steps
 
     model, mesh, out = _timed_mesh(args)
     problem = build_problem(model, mesh)  # only for the load vectors and part node sets

@@ -9,8 +9,8 @@ from __future__ import annotations
 
 import copy
 
-from solver.mesh import build_mesh, estimate_nodes, plan_lines
-from solver.model import parse_model
+from solver.mesh.mesher import build_mesh, estimate_nodes, plan_lines
+from solver.model.modelfile import parse_model
 
 BASE = {
     "format": "thermgui-model", "version": 1,

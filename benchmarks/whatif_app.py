@@ -3,7 +3,7 @@
 The invented "rooftop edge gateway" (benchmarks/scaled_model.py), one hour, is solved once headless
 (a reduced run of the file's mesh: the baseline, measured here), its results folder is opened in the
 app's main window, the what-if panel is handed that run's problem, and the run's unit responses are
-built as the app builds them (``solver.whatif.prepare_unit_responses``, timed). Then factors and the
+built as the app builds them (``solver.answers.whatif.prepare_unit_responses``, timed). Then factors and the
 ambient offset are typed into the panel's boxes and the time from the change to the answer shown
 (peak table and chart updated, through the worker thread) is measured for each, with the share spent on
 the window's thread (table and chart). Printed as seconds and as ratios to the baseline run.
@@ -41,8 +41,8 @@ def main(argv=None) -> int:
     from PySide6.QtWidgets import QApplication
 
     import solver
-    from solver.session import RunSession
-    from solver.whatif import prepare_unit_responses
+    from solver.run.session import RunSession
+    from solver.answers.whatif import prepare_unit_responses
     from thermgui.app import make_application, open_window
 
     pv.global_theme.multi_samples = 0

@@ -10,14 +10,15 @@ Typical use::
         rec.add(event)
     rows = rec.peak_rows()
 """
-from .errors import Cancelled, ModelError, SolveError
-from .model import Model, load_model, parse_model, save_model
-from .problem import Problem, build_problem
-from .results import PeakRow, RunRecorder
-from .stepping import StepEvent, Stepper, critical_step
+from solver.errors import Cancelled, ModelError, SolveError
+from solver.model.modelfile import Model, load_model, parse_model, save_model
+from solver.fem.problem import Problem, build_problem
+from solver.results.recorder import PeakRow, RunRecorder
+from solver.transient.stepping import StepEvent, Stepper, critical_step
+from solver.run.session import RunSession
 
 __version__ = "0.1.0"
 
 __all__ = ["Cancelled", "ModelError", "SolveError", "Model", "load_model", "parse_model", "save_model",
-           "Problem", "build_problem", "PeakRow", "RunRecorder", "StepEvent", "Stepper", "critical_step",
+           "Problem", "build_problem", "PeakRow", "RunRecorder", "StepEvent", "Stepper", "critical_step", "RunSession",
            "__version__"]

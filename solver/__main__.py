@@ -1,5 +1,5 @@
 import sys
 
-from .cli import main
+from solver.run.cli import main
 
 sys.exit(main())

@@ -43,7 +43,7 @@ def _child(case: dict, cap_bytes: int, cpu_s: int, result_path: str) -> None:
     except BaseException as e:  # noqa: BLE001 - reported, the test fails on it
         out["rc"] = f"{type(e).__name__}: {e}"
     if case.get("reopen") and out["rc"] == 0:
-        from solver.runfolder import load_run
+        from solver.io.runfolder import load_run
 
         try:
             run = load_run(case["out"])
@@ -60,7 +60,7 @@ def main(argv) -> int:
     cases_path, results_path = argv[1], argv[2]
     with open(cases_path) as fh:
         spec = json.load(fh)
-    import solver.cli  # noqa: F401 - import once in the parent, children share it
+    import solver.run.cli  # noqa: F401 - import once in the parent, children share it
     import thermgui.cli  # noqa: F401
 
     results = []

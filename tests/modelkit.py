@@ -14,7 +14,7 @@ from scipy.integrate import solve_ivp
 from scipy.optimize import brentq
 
 import solver
-from solver.stepping import Stepper
+from solver.transient.stepping import Stepper
 
 # A fictitious isotropic solid with round numbers (α = k/ρc = 1e-6 m²/s).
 SLOW = {"conductivity": 1.0, "density": 1000.0, "specific_heat": 1000.0}

@@ -7,9 +7,9 @@ from pathlib import Path
 
 import numpy as np
 
-from solver.fieldseries import FIELD_FILE, FIELD_NAME, LEGACY_SERIES, open_field_series
-from solver.runstore import MANIFEST_NAME
-from solver.vtkxml import write_pvd, write_vtu
+from solver.io.fieldseries import FIELD_FILE, FIELD_NAME, LEGACY_SERIES, open_field_series
+from solver.io.runstore import MANIFEST_NAME
+from solver.io.vtkxml import write_pvd, write_vtu
 
 
 def staged_frames(out: Path) -> int:

@@ -4,7 +4,7 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
-from solver.sweep import run_group
+from solver.answers.sweep import run_group
 
 
 def dies_once(marker: str):

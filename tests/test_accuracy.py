@@ -1,4 +1,4 @@
-"""Error bounds on peaks and refinement to a tolerance (solver.accuracy, solver.refinement).
+"""Error bounds on peaks and refinement to a tolerance (solver.run.accuracy, solver.mesh.refinement).
 
 Outside references:
 - heated box with all faces held at the surrounding temperature: the triple Fourier sine series
@@ -23,12 +23,12 @@ import pytest
 
 from modelkit import model_dict, part
 import solver
-from solver.accuracy import mesh_error_bound, observed_order
-from solver.cli import solve_to_folder
-from solver.mesh import build_mesh
-from solver.refinement import axis_indicators, cell_conductivity, refined_lines
-from solver.results import PeakRow
-from solver.session import RunSession
+from solver.run.accuracy import mesh_error_bound, observed_order
+from solver.run.cli import solve_to_folder
+from solver.mesh.mesher import build_mesh
+from solver.mesh.refinement import axis_indicators, cell_conductivity, refined_lines
+from solver.results.recorder import PeakRow
+from solver.run.session import RunSession
 
 SIZE_MM = (20.0, 12.0, 8.0)
 K, RHO, CP = 2.0, 2000.0, 1000.0
@@ -203,7 +203,7 @@ def test_fixed_steps_add_a_time_error():
 def test_influence_fields_with_each_solver(method):
     """One influence field per hot node, the same from a direct and an iterative solver
     (several right-hand sides at once)."""
-    from solver.refinement import influence_fields
+    from solver.mesh.refinement import influence_fields
 
     d = heated_box(2.0, None)
     model = solver.parse_model(d)
@@ -222,7 +222,7 @@ def test_ladder_plans_no_level_it_will_not_solve(monkeypatch):
     """A ladder stopped by mesh.max_levels = 3 plans the next mesh (influence fields and new
     planes) after levels 0 and 1 only; the reduced basis's factorization is reused for the
     influence fields and released at the end."""
-    import solver.session as session_mod
+    import solver.run.session as session_mod
 
     calls = []
     real = session_mod.influence_fields
@@ -245,8 +245,8 @@ def test_ladder_plans_no_level_it_will_not_solve(monkeypatch):
 
 def test_reused_factorization_gives_the_influence_field():
     """The influence field from a handed-on K + M/τ factorization solves that system."""
-    from solver.linsolve import make_solver
-    from solver.refinement import influence_fields
+    from solver.linalg.linsolve import make_solver
+    from solver.mesh.refinement import influence_fields
 
     problem = solver.build_problem(solver.parse_model(heated_box(2.0, None)))
     tau = 35.0

@@ -14,8 +14,8 @@ import pytest
 import sympy
 
 import solver
-from solver import adaptive
-from solver.stepping import Stepper
+from solver.transient import adaptive
+from solver.transient.stepping import Stepper
 
 
 def _model(tolerance=None, step_s=0.5, duration=90.0, scheme="crank-nicolson", mass="lumped"):

@@ -92,7 +92,7 @@ def test_box_and_air_against_two_node_network(method, mass):
 def test_air_in_history_and_peaks(tmp_path):
     path = tmp_path / "box.json"
     path.write_text(json.dumps(box(duration_s=300.0)))
-    from solver.cli import solve_to_folder
+    from solver.run.cli import solve_to_folder
 
     solve_to_folder(path, tmp_path / "out", quiet=True)
     with open(tmp_path / "out" / "history.csv") as fh:
@@ -138,7 +138,7 @@ def test_given_volume_overrides_the_enclosure():
 
 
 def test_whatif_refuses_air_volumes():
-    from solver.unitresponse import require_linear
+    from solver.answers.unitresponse import require_linear
 
     with pytest.raises(ModelError) as e:
         require_linear(solver.parse_model(box()))

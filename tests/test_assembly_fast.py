@@ -11,9 +11,9 @@ import pytest
 import scipy.sparse as sp
 
 import solver
-from solver import assemble
-from solver.mesh import convection_face_mask
-from solver.problem import material_arrays
+from solver.fem import assemble
+from solver.mesh.mesher import convection_face_mask
+from solver.fem.problem import material_arrays
 
 ROUNDOFF = 1e-12
 

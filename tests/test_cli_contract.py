@@ -1,7 +1,7 @@
 """The ``thermgui solve`` contract of NOTES.md §4: exit status, messages, output files.
 
 End-to-end checks start the real command (``python -m thermgui``) in a subprocess; the many
-bad-input cases call ``solver.cli.solve_to_folder`` (what ``thermgui solve`` runs) in-process
+bad-input cases call ``solver.run.cli.solve_to_folder`` (what ``thermgui solve`` runs) in-process
 with its error stream captured. The written field series is read back with pyvista (an
 outside reader of VTK XML) and compared with history.csv.
 """
@@ -19,7 +19,7 @@ import pytest
 
 from conftest import minimal_model_dict
 from modelkit import model_dict, part
-from solver.cli import solve_to_folder
+from solver.run.cli import solve_to_folder
 
 PEAK_HEADER = ["part", "rated_c", "peak_c", "peak_error_k", "peak_time_s", "margin_k", "first_over_s",
                "hotspot_x_mm", "hotspot_y_mm", "hotspot_z_mm", "status"]
@@ -276,7 +276,7 @@ def test_times_in_csv_keep_their_precision_on_long_runs(tmp_path):
 def test_vtu_writer_round_trip_through_pyvista(tmp_path, n_points):
     """Compressed blocks of 64 KiB: exactly full, one value over, and partial last blocks."""
     pv = pytest.importorskip("pyvista")
-    from solver.vtkxml import write_vtu
+    from solver.io.vtkxml import write_vtu
 
     rng = np.random.default_rng(n_points)
     pts = rng.uniform(0, 10, (n_points, 3))

@@ -15,9 +15,9 @@ import pytest
 import solver
 from modelkit import model_dict, part, problem_of
 from solver import RunRecorder, Stepper
-from solver.mesh import MM
-from solver.model import PulseProfile, StepProfile, TableProfile
-from solver.profiles import make_profile
+from solver.mesh.mesher import MM
+from solver.model.modelfile import PulseProfile, StepProfile, TableProfile
+from solver.model.profiles import make_profile
 
 PULSE = {"type": "pulse", "high": 4.0, "low": 0.5, "period_s": 7.0, "duty": 0.3, "start_s": 2.5}
 

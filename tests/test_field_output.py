@@ -1,4 +1,4 @@
-"""The field file (solver/fieldseries.py): VTKHDF written beside the stepping, read back by VTK's
+"""The field file (solver/io/fieldseries.py): VTKHDF written beside the stepping, read back by VTK's
 own vtkHDFReader (a general VTK reader, outside this project) and by pyvista; folders written
 before it (field.pvd + whole-mesh .vtu frames) still open; writer errors name the folder.
 Invented scenario: the chip-on-plate test model."""
@@ -12,10 +12,10 @@ import numpy as np
 import pytest
 
 import solver
-from solver.cli import solve_to_folder
-from solver.fieldseries import FIELD_FILE, FieldWriteError, FieldWriter, open_field_series
-from solver.runfolder import is_run_folder, load_run
-from solver.session import RunSession
+from solver.run.cli import solve_to_folder
+from solver.io.fieldseries import FIELD_FILE, FieldWriteError, FieldWriter, open_field_series
+from solver.io.runfolder import is_run_folder, load_run
+from solver.run.session import RunSession
 from tests.modelkit import chip_on_plate
 from tests.runfolderkit import to_legacy_layout
 

@@ -9,8 +9,8 @@ import pytest
 import scipy.sparse.linalg as spla
 
 import solver
-from solver import linsolve
-from solver.stepping import Stepper
+from solver.linalg import linsolve
+from solver.transient.stepping import Stepper
 
 
 def _problem(mass="lumped"):

@@ -13,9 +13,9 @@ skfem = pytest.importorskip("skfem")
 from skfem import Basis, BilinearForm, ElementTetP1, FacetBasis, LinearForm, MeshTet, asm  # noqa: E402
 from skfem.helpers import dot  # noqa: E402
 
-from solver import assemble  # noqa: E402
-from solver.mesh import MM, build_mesh  # noqa: E402
-from solver.problem import material_arrays  # noqa: E402
+from solver.fem import assemble  # noqa: E402
+from solver.mesh.mesher import MM, build_mesh  # noqa: E402
+from solver.fem.problem import material_arrays  # noqa: E402
 
 from modelkit import model_dict, part, problem_of  # noqa: E402
 
@@ -136,7 +136,7 @@ def _facet_ids(sk, tris):
 
 def test_convection_matrix_and_load_match_skfem(case):
     model, problem, sk = case
-    from solver.mesh import convection_face_mask
+    from solver.mesh.mesher import convection_face_mask
 
     bf = problem.mesh.boundary
     h_face = np.zeros(len(bf.tris))

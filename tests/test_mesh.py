@@ -12,7 +12,7 @@ import pytest
 
 import solver
 from modelkit import model_dict, part, problem_of
-from solver.mesh import HEATED_MIN_LAYERS, MM, build_mesh, convection_face_mask, estimate_nodes
+from solver.mesh.mesher import HEATED_MIN_LAYERS, MM, build_mesh, convection_face_mask, estimate_nodes
 
 TOL = 1e-9
 

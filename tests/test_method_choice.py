@@ -1,4 +1,4 @@
-"""run.method = "auto": the cost rule (solver/methodchoice.py) and the runs it picks.
+"""run.method = "auto": the cost rule (solver/transient/methodchoice.py) and the runs it picks.
 
 The rule itself is ours (its constants come from our benchmark measurements, benchmarks/README.md);
 what is checked against an outside reference is that the run it picks agrees with scipy's
@@ -13,8 +13,8 @@ import numpy as np
 import pytest
 
 import solver
-from solver.methodchoice import RunShape, choose_run_method, predicted_costs
-from solver.stepping import Stepper
+from solver.transient.methodchoice import RunShape, choose_run_method, predicted_costs
+from solver.transient.stepping import Stepper
 from tests.modelkit import reference_ivp
 
 
@@ -126,7 +126,7 @@ def test_few_steps_and_forward_euler_are_stepped(pulsed_reference):
 
 
 def test_cli_reports_the_choice(tmp_path, capsys):
-    from solver.cli import solve_to_folder
+    from solver.run.cli import solve_to_folder
 
     path = tmp_path / "m.json"
     path.write_text(json.dumps(_pulsed(duration=200.0)))

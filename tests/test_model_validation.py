@@ -13,7 +13,7 @@ import pytest
 
 import solver
 from conftest import minimal_model_dict
-from solver.model import load_model
+from solver.model.modelfile import load_model
 
 
 def _set(path, value):

@@ -7,9 +7,9 @@ import numpy as np
 import pytest
 
 import solver
-from solver.cli import solve_to_folder
+from solver.run.cli import solve_to_folder
 from solver.errors import ModelError
-from solver.session import RunSession
+from solver.run.session import RunSession
 from tests import modelkit as mk
 
 PERIOD = 60.0

@@ -14,7 +14,7 @@ from scipy.integrate import solve_ivp
 
 import solver
 from solver.errors import ModelError, SolveError
-from solver.radiation import KELVIN, SIGMA
+from solver.fem.radiation import KELVIN, SIGMA
 from modelkit import model_dict, part, problem_of
 
 SIDE_MM = 20.0
@@ -92,7 +92,7 @@ def test_reduced_and_auto_fall_back_to_full_and_say_why(requested):
 
 
 def test_superposition_answers_refuse_radiation():
-    from solver.unitresponse import require_linear
+    from solver.answers.unitresponse import require_linear
 
     with pytest.raises(ModelError) as e:
         require_linear(solver.parse_model(body()))
@@ -127,7 +127,7 @@ def test_surroundings_need_an_emissivity_and_sane_values():
 
 
 def test_failed_iterations_name_the_faces(monkeypatch):
-    import solver.radiation as rad
+    import solver.fem.radiation as rad
 
     monkeypatch.setattr(rad, "MAX_ITER", 1)  # no step can converge in one iteration
     _, problem = problem_of(body(duration_s=60.0))
@@ -140,7 +140,7 @@ def test_run_record_states_the_method_and_iterations(tmp_path):
     path = tmp_path / "body.json"
     d = body(duration_s=120.0, method="auto")
     path.write_text(json.dumps(d))
-    from solver.cli import solve_to_folder
+    from solver.run.cli import solve_to_folder
 
     solve_to_folder(path, tmp_path / "out", quiet=True)
     info = json.loads((tmp_path / "out" / "run.json").read_text())

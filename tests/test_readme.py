@@ -2,7 +2,7 @@
 promises (first paragraph, cautions, links, sample paths) is there and true.
 
 Also keeps the built-in materials table in docs/model-format.md in step with
-``solver/materials.py``: ``python3 tests/test_readme.py --write`` regenerates it.
+``solver/model/materials.py``: ``python3 tests/test_readme.py --write`` regenerates it.
 """
 from __future__ import annotations
 
@@ -84,7 +84,7 @@ def test_run_command_installs_like_ci_then_starts_the_declared_program():
 def test_thermgui_without_arguments_opens_the_default_sample(monkeypatch):
     """What `thermgui` does (the end of the first command), without opening a window."""
     import thermgui.app
-    from solver.model import load_model
+    from solver.model.modelfile import load_model
     from thermgui.cli import main
 
     opened = []
@@ -135,7 +135,7 @@ def test_sample_paths_named_in_the_readme_exist():
 # ------------------------------------------------------------------ model format reference
 def schema_fields() -> list[str]:
     """Every key of the model file, as ``section.key`` paths, from the schema classes."""
-    from solver import model as m
+    from solver.model import modelfile as m
 
     sections = {"": m.Model, "parts": m.Part, "materials": m.MaterialSpec, "heat_loads": m.HeatLoad,
                 "convection": m.Convection, "probes": m.Probe, "mesh": m.MeshSettings, "run": m.RunSettings,
@@ -158,7 +158,7 @@ BEGIN, END = "<!-- materials:begin -->", "<!-- materials:end -->"
 
 
 def materials_table() -> str:
-    from solver.materials import BUILTIN_MATERIALS
+    from solver.model.materials import BUILTIN_MATERIALS
 
     rows = ["| name | conductivity W/(m·K) | density kg/m³ | specific heat J/(kg·K) | use | source |",
             "|---|---|---|---|---|---|"]

@@ -18,12 +18,12 @@ import pytest
 from scipy.integrate import quad, solve_ivp
 
 import solver
-from solver import linsolve
-from solver import reduced
+from solver.linalg import linsolve
+from solver.transient import reduced
 from solver.errors import Cancelled, ModelError
-from solver.krylov import KrylovBasis, mass_times
-from solver.modal import ModalSystem, phi_functions
-from solver.stepping import Stepper
+from solver.transient.krylov import KrylovBasis, mass_times
+from solver.transient.modal import ModalSystem, phi_functions
+from solver.transient.stepping import Stepper
 
 
 def _model_dict(method="reduced", tolerance=0.05, step_s=0.5, mass="lumped", duration=120.0):

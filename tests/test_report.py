@@ -21,9 +21,9 @@ from pathlib import Path
 import pytest
 
 from modelkit import chip_on_plate
-from solver.cli import solve_to_folder
-from solver.model import parse_model, save_model
-from solver.runstore import record_edits
+from solver.run.cli import solve_to_folder
+from solver.model.modelfile import parse_model, save_model
+from solver.io.runstore import record_edits
 from runfolderkit import to_legacy_layout
 
 ROOT = Path(__file__).resolve().parent.parent

@@ -19,11 +19,11 @@ import numpy as np
 import pytest
 
 import solver
-from solver import runstore
-from solver.cli import solve_to_folder
+from solver.io import runstore
+from solver.run.cli import solve_to_folder
 from solver.errors import ModelError
-from solver.runfolder import load_run
-from solver.fieldseries import FIELD_FILE, LEGACY_SERIES
+from solver.io.runfolder import load_run
+from solver.io.fieldseries import FIELD_FILE, LEGACY_SERIES
 from tests.hostile_cases import BASE
 from tests.runfolderkit import HDF_DAMAGE, field_frames, staged_frames, to_legacy_layout, truncate
 
@@ -398,7 +398,7 @@ def test_a_crash_while_moving_files_into_place_reads_as_incomplete(tmp_path, mon
 def test_a_full_disk_at_the_end_leaves_the_folder_as_it_was(tmp_path, monkeypatch):
     import errno
 
-    import solver.session as session_mod
+    import solver.run.session as session_mod
 
     out = tmp_path / "R"
     model = _write(tmp_path, BASE)
@@ -466,7 +466,7 @@ def test_a_damaged_lock_file_is_cleaned_once_stale(tmp_path):
 
 # ---------------------------------------------------------------- planning and estimates
 def test_output_landing_matches_the_brute_force_rule():
-    from solver.timegrid import TIME_TOL, output_times, plan_steps
+    from solver.transient.timegrid import TIME_TOL, output_times, plan_steps
 
     outs = output_times(37.0, 0.7)
     steps = plan_steps(37.0, 0.25, 0.5, [], outs)
@@ -479,8 +479,8 @@ def test_the_estimate_never_exceeds_the_real_mesh(sample):
     """The budget counts planes from the part faces; the mesher only adds planes (grading), so the
     counted grid is a lower bound of the real one and the solid nodes are bounded by the real count
     plus the nodes shared between parts."""
-    from solver.budget import estimate
-    from solver.mesh import build_mesh
+    from solver.mesh.budget import estimate
+    from solver.mesh.mesher import build_mesh
 
     model = solver.load_model(ROOT / "samples" / sample)
     est = estimate(model)

@@ -9,12 +9,12 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from solver.cli import solve_to_folder
+from solver.run.cli import solve_to_folder
 from solver.errors import ModelError
-from solver.model import parse_model, save_model
-from solver.runfolder import load_run
-from solver.results import PEAK_COLUMNS
-from solver.session import RunSession
+from solver.model.modelfile import parse_model, save_model
+from solver.io.runfolder import load_run
+from solver.results.recorder import PEAK_COLUMNS
+from solver.run.session import RunSession
 from thermgui.runresults.autocut import hottest_spot, on_outer_box, revealing_cut_z
 from thermgui.runresults.messages import describe_error, item_for_path
 from thermgui.runresults.runpanel import remaining_seconds

@@ -1,6 +1,6 @@
 """Every bundled sample runs headless to its end and its results pass physical sanity checks.
 
-Each sample is run once (module-scoped fixture) through :class:`solver.session.RunSession`,
+Each sample is run once (module-scoped fixture) through :class:`solver.run.session.RunSession`,
 the same path ``thermgui solve`` takes; the power stage writes its result files to a temporary
 folder, the others keep their results in memory (the file writers are tested elsewhere). To keep
 this file within its time budget the radio box runs the first half of its profile (set in
@@ -36,8 +36,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from solver.model import load_model, parse_model
-from solver.session import RunSession
+from solver.model.modelfile import load_model, parse_model
+from solver.run.session import RunSession
 
 ROOT = Path(__file__).resolve().parent.parent
 SAMPLES = sorted((ROOT / "samples").glob("*.json"))
@@ -249,7 +249,7 @@ def test_air_volume_is_the_housing_inside_minus_the_parts_in_it():
     minus the board, standoffs, module and regulator, by hand from the file."""
     data = json.loads((ROOT / "samples" / "outdoor_radio_box.json").read_text(encoding="utf-8"))
     model = parse_model(data)
-    from solver.problem import build_problem
+    from solver.fem.problem import build_problem
 
     problem = build_problem(model)
     inner = 114.0 * 74.0 * 34.0

@@ -6,8 +6,8 @@ import json
 import pytest
 
 import solver
-from solver.session import RunSession
-from solver.sweep import make_cases, read_sweep, run_sweep, sweep_to_folder
+from solver.run.session import RunSession
+from solver.answers.sweep import make_cases, read_sweep, run_sweep, sweep_to_folder
 from tests import modelkit as mk
 from tests.sweep_tasks import dies_once
 
@@ -108,7 +108,7 @@ def test_unreachable_scheduler_exit_1_nothing_written(tmp_path, capsys):
 def test_load_watts_and_ambient_superposed_from_one_solve(tmp_path):
     """A constant load's watts and the model's ambient (no entry has its own) are a scale and an
     offset: one solve serves every case, and a case equals a fresh solve (0.05 K)."""
-    from solver.sweep import group_cases
+    from solver.answers.sweep import group_cases
 
     path = write_sweep(tmp_path, [{"field": "heat_loads[0].profile.value", "values": [1.0, 2.0]},
                                   {"field": "ambient_c", "values": [20.0, 35.0]}])

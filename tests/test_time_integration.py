@@ -132,7 +132,7 @@ def _drop_case():
 
 
 def test_stiff_problem_is_stiff():
-    from solver.stepping import largest_eigenvalue
+    from solver.transient.stepping import largest_eigenvalue
 
     problem, *_ = _drop_case()
     assert largest_eigenvalue(problem.stiffness, problem.lumped) * 1.0 > 1e3
@@ -183,7 +183,7 @@ def _fe_limit():
 
 
 def test_largest_eigenvalue_matches_dense_scipy():
-    from solver.stepping import critical_step, largest_eigenvalue
+    from solver.transient.stepping import critical_step, largest_eigenvalue
 
     problem, lam_ref = _fe_limit()
     lam = largest_eigenvalue(problem.stiffness, problem.lumped)

@@ -8,8 +8,8 @@ import json
 import numpy as np
 
 import solver
-from solver.session import RunSession
-from solver.whatif import whatif_to_folder
+from solver.run.session import RunSession
+from solver.answers.whatif import whatif_to_folder
 from tests import modelkit as mk
 
 
@@ -96,7 +96,7 @@ def test_superposition_refused_with_radiation():
     import pytest
 
     from solver.errors import ModelError
-    from solver.unitresponse import require_linear
+    from solver.answers.unitresponse import require_linear
 
     model = SimpleNamespace(convection=[SimpleNamespace(emissivity=None), SimpleNamespace(emissivity=0.9)])
     with pytest.raises(ModelError) as e:

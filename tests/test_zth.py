@@ -1,4 +1,4 @@
-"""Zth(t) curves, Foster fits, Cauer conversion, SPICE export (solver.zth, solver.foster, zthfiles)."""
+"""Zth(t) curves, Foster fits, Cauer conversion, SPICE export (solver.answers.zth, solver.answers.foster, zthfiles)."""
 from __future__ import annotations
 
 import csv
@@ -11,9 +11,9 @@ import sympy
 from scipy.signal import lsim
 
 import solver
-from solver.answers_cli import zth_to_folder
-from solver.foster import CauerLadder, FosterFit, fit_foster, foster_to_cauer
-from solver.zth import compute_zth
+from solver.answers.commands import zth_to_folder
+from solver.answers.foster import CauerLadder, FosterFit, fit_foster, foster_to_cauer
+from solver.answers.zth import compute_zth
 from tests import modelkit as mk
 from tests.spicenet import state_space
 

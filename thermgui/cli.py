@@ -4,7 +4,7 @@
     thermgui open FILE            open a model (or a results folder) in the app
     thermgui solve MODEL --out D  run headless and write results to D
     thermgui report DIR -o F.html one self-contained HTML design-review report of a finished run
-    thermgui zth MODEL --out D    thermal impedance curves and RC networks (solver.answers_cli)
+    thermgui zth MODEL --out D    thermal impedance curves and RC networks (solver.answers.commands)
     thermgui whatif MODEL --out D scaled loads / shifted ambient by superposition
     thermgui sweep SWEEP --out D  sweep cases on Dask (LocalCluster or --scheduler ADDRESS)
 """
@@ -16,15 +16,10 @@ import sys
 from pathlib import Path
 
 from solver import __version__
-from solver import answers_cli
-from solver.cli import add_solve_arguments, solve_to_folder
+from solver.answers import commands as answers_cli
+from solver.run.cli import add_solve_arguments, solve_to_folder
 
-SAMPLES_DIR = Path(__file__).resolve().parent.parent / "samples"
-DEFAULT_SAMPLE = "outdoor_radio_box.json"
-
-
-def default_sample() -> Path:
-    return SAMPLES_DIR / DEFAULT_SAMPLE
+from .samples import DEFAULT_SAMPLE, SAMPLES_DIR, default_sample  # noqa: F401 (re-exported)
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -1,7 +1,7 @@
-"""The open model: a validated :class:`solver.model.Model`, its file path and its undo history.
+"""The open model: a validated :class:`solver.model.modelfile.Model`, its file path and its undo history.
 
 Edits arrive as new model dicts (see :mod:`thermgui.edits`); :meth:`ModelDocument.edit`
-validates them with :func:`solver.model.parse_model` and refuses an invalid one with the
+validates them with :func:`solver.model.modelfile.parse_model` and refuses an invalid one with the
 :class:`~solver.errors.ModelError` naming the field, leaving the model unchanged. A valid
 edit becomes one undoable :class:`~thermgui.commands.ModelEdit`. The document is "dirty"
 when the undo stack is away from its saved state (or after a recovered session).
@@ -14,7 +14,7 @@ from PySide6.QtCore import QObject, Signal
 from PySide6.QtGui import QUndoStack
 
 from solver.errors import ModelError
-from solver.model import Model, parse_model
+from solver.model.modelfile import Model, parse_model
 
 from .commands import ModelEdit
 

@@ -1,7 +1,7 @@
-"""Pure edits of a model dict (the JSON form of :class:`solver.model.Model`), with no Qt.
+"""Pure edits of a model dict (the JSON form of :class:`solver.model.modelfile.Model`), with no Qt.
 
 Every function takes a model dict and returns a *new* dict; the caller validates the result
-with :func:`solver.model.parse_model` before it becomes the document's model. Items are
+with :func:`solver.model.modelfile.parse_model` before it becomes the document's model. Items are
 addressed by ``(kind, index)`` with kind one of :data:`KINDS`. Lengths in mm, powers in W,
 temperatures in °C, film coefficients in W/(m²·K), times in s.
 """
@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import copy
 
-from solver.materials import BUILTIN_MATERIALS
+from solver.model.materials import BUILTIN_MATERIALS
 
 KINDS = ("parts", "heat_loads", "convection", "surface_loads", "contacts", "air_volumes", "probes", "materials")
 LIST_KINDS = KINDS[:-1]  # "materials" is a name -> properties object in the file, a list here

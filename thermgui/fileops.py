@@ -1,6 +1,6 @@
 """New / open / save / save as, recent files, the unsaved-changes prompt and crash recovery.
 
-Saving goes through :func:`solver.model.save_model` (temporary file + rename). While the
+Saving goes through :func:`solver.model.modelfile.save_model` (temporary file + rename). While the
 model has unsaved changes, a timer writes it every ``autosave_s`` seconds to a recovery file
 in the app's state folder; a normal save, "discard" or a clean exit deletes it. When a model
 is opened and a recovery file for it (or for an untitled model) is found, the user is asked
@@ -19,10 +19,11 @@ from pathlib import Path
 from PySide6.QtCore import QObject, QSettings, QStandardPaths, QTimer, Signal
 
 from solver.errors import ModelError
-from solver.model import clean_stale_temps, load_model, parse_model, save_model
-from solver.runfolder import is_run_folder, load_run
+from solver.model.modelfile import clean_stale_temps, load_model, parse_model, save_model
+from solver.io.runfolder import is_run_folder, load_run
 
 from .document import blank_model
+from .samples import SAMPLES_DIR
 
 RECENT_KEY = "files/recent"
 MAX_RECENT = 8
@@ -50,7 +51,6 @@ def display_path(path) -> str:
 
 def is_bundled_sample(path) -> bool:
     """True for a model file in the samples folder shipped with the program."""
-    from .cli import SAMPLES_DIR
 
     try:
         return Path(path).resolve().parent == SAMPLES_DIR.resolve()

@@ -25,9 +25,9 @@ import numpy as np
 
 from solver import __version__
 from solver.errors import ModelError
-from solver.runfolder import FinishedRun, is_run_folder, load_run
-from solver.runstore import cut_short_runs
-from solver.fieldseries import FIELD_FILE, LEGACY_SERIES
+from solver.io.runfolder import FinishedRun, is_run_folder, load_run
+from solver.io.runstore import cut_short_runs
+from solver.io.fieldseries import FIELD_FILE, LEGACY_SERIES
 
 from .runresults.peakview import STATUS_WORDS, VERDICT_FILL, VERDICT_TEXT, columns, display_row, review_order
 from .runresults.timefmt import format_time, time_unit
@@ -139,7 +139,7 @@ def profile_plot(profile, duration_s: float, unit_label: str) -> str:
     """A small plot of a heat-load (W) or ambient (°C) profile over the run."""
     from matplotlib.figure import Figure
 
-    from solver.profiles import make_profile
+    from solver.model.profiles import make_profile
 
     f = make_profile(profile)
     unit, size = time_unit(duration_s)
@@ -232,7 +232,7 @@ def _f(v):
 
 
 def _material_rows(model: dict) -> list[dict]:
-    from solver.materials import BUILTIN_MATERIALS
+    from solver.model.materials import BUILTIN_MATERIALS
 
     own = model.get("materials", {}) or {}
     used = sorted({p["material"] for p in model.get("parts", [])})
@@ -312,7 +312,7 @@ def report_context(run: FinishedRun, pictures: bool = True) -> dict:
     energy = run.info.get("energy", {})
     loads = []
     try:
-        from solver.model import parse_model
+        from solver.model.modelfile import parse_model
 
         parsed = parse_model(model, str(run.folder / "run.json"))
     except ModelError:
@@ -335,7 +335,7 @@ def report_context(run: FinishedRun, pictures: bool = True) -> dict:
     acc_text = ""
     if isinstance(acc, dict) and acc.get("levels"):
         try:  # the solver's own table, as `thermgui solve` prints it
-            from solver.accuracy import format_record
+            from solver.run.accuracy import format_record
 
             acc_text = format_record(acc)
         except Exception:  # an older or newer record shape: the generic table below still shows it
@@ -373,7 +373,7 @@ def report_context(run: FinishedRun, pictures: bool = True) -> dict:
 
 
 def _peak_columns():
-    from solver.results import PEAK_COLUMNS
+    from solver.results.recorder import PEAK_COLUMNS
 
     return PEAK_COLUMNS
 

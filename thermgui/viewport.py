@@ -138,7 +138,7 @@ class Viewport(QWidget):
         QWidget.update(self.plotter)
 
     def show_model(self, model) -> None:
-        """Redraw all parts of ``model`` (a solver.model.Model), keeping camera and selection."""
+        """Redraw all parts of ``model`` (a solver.model.modelfile.Model), keeping camera and selection."""
         self._parts = [{"name": p.name, "material": p.material, "origin_mm": list(p.origin_mm),
                         "size_mm": list(p.size_mm)} for p in model.parts]
         self._probes = [(pr.name, tuple(pr.at_mm)) for pr in model.probes]

@@ -16,9 +16,9 @@ pytest.importorskip("pytestqt")
 from PySide6.QtTest import QTest  # noqa: E402
 
 from modelkit import chip_on_plate  # noqa: E402
-from solver.cli import solve_to_folder  # noqa: E402
-from solver.model import parse_model, save_model  # noqa: E402
-from solver.runstore import record_edits  # noqa: E402
+from solver.run.cli import solve_to_folder  # noqa: E402
+from solver.model.modelfile import parse_model, save_model  # noqa: E402
+from solver.io.runstore import record_edits  # noqa: E402
 from thermgui.runresults.peakview import VERDICT_FILL  # noqa: E402
 
 pytestmark = pytest.mark.gui

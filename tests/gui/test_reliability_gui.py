@@ -20,9 +20,9 @@ import pytest
 
 pytest.importorskip("pytestqt")
 
-from solver.cli import solve_to_folder  # noqa: E402
-from solver.model import load_model, parse_model, save_model  # noqa: E402
-from solver.runfolder import load_run  # noqa: E402
+from solver.run.cli import solve_to_folder  # noqa: E402
+from solver.model.modelfile import load_model, parse_model, save_model  # noqa: E402
+from solver.io.runfolder import load_run  # noqa: E402
 from thermgui.runresults import results_folder_for  # noqa: E402
 from modelkit import chip_on_plate  # noqa: E402
 from runfolderkit import staged_frames, to_legacy_layout, truncate  # noqa: E402
@@ -226,7 +226,7 @@ def test_saving_keeps_the_mode_and_writes_through_a_symlink(tmp_path):
 
 SAVER = """
 import sys, json
-from solver.model import parse_model, save_model
+from solver.model.modelfile import parse_model, save_model
 d = json.loads(open(sys.argv[1]).read())
 big = dict(d, parts=d["parts"] + [dict(d["parts"][0], name=f"pad {i}", origin_mm=[100.0 + i, 0, 0])
                                    for i in range(6000)])

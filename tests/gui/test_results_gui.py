@@ -16,8 +16,8 @@ pytest.importorskip("pytestqt")
 from PySide6.QtCore import QPointF, Qt  # noqa: E402
 from PySide6.QtGui import QGuiApplication  # noqa: E402
 
-from solver.cli import solve_to_folder  # noqa: E402
-from solver.model import parse_model, save_model  # noqa: E402
+from solver.run.cli import solve_to_folder  # noqa: E402
+from solver.model.modelfile import parse_model, save_model  # noqa: E402
 from thermgui.runresults import results_folder_for  # noqa: E402
 from modelkit import chip_on_plate
 

@@ -2,7 +2,7 @@
 dialogs that start in the model's folder, and the small things of issue 13."""
 from __future__ import annotations
 
-from solver.results import PEAK_COLUMNS
+from solver.results.recorder import PEAK_COLUMNS
 
 from pathlib import Path
 
@@ -11,7 +11,7 @@ import pytest
 pytest.importorskip("pytestqt")
 
 from modelkit import chip_on_plate  # noqa: E402
-from solver.model import parse_model, save_model  # noqa: E402
+from solver.model.modelfile import parse_model, save_model  # noqa: E402
 
 pytestmark = pytest.mark.gui
 

@@ -1,6 +1,6 @@
 """What-if after a run, in the main window, driven as a user would (pytest-qt, real widgets under Xvfb).
 
-References for the numbers: ``solver.whatif`` through ``thermgui whatif``'s own entry point
+References for the numbers: ``solver.answers.whatif`` through ``thermgui whatif``'s own entry point
 (``whatif_to_folder``) on the same model file, computed in the test, and a fresh Crank–Nicolson solve
 of the changed model written out by hand (superposition holds for this linear model: the what-if
 must match a solve within 0.05 K, the bound of issue 16).
@@ -16,10 +16,10 @@ pytest.importorskip("pytestqt")
 from PySide6.QtCore import Qt  # noqa: E402
 
 import solver  # noqa: E402
-from solver.model import parse_model, save_model  # noqa: E402
-from solver.results import PEAK_COLUMNS  # noqa: E402
-from solver.session import RunSession  # noqa: E402
-from solver.whatif import whatif_to_folder  # noqa: E402
+from solver.model.modelfile import parse_model, save_model  # noqa: E402
+from solver.results.recorder import PEAK_COLUMNS  # noqa: E402
+from solver.run.session import RunSession  # noqa: E402
+from solver.answers.whatif import whatif_to_folder  # noqa: E402
 from modelkit import chip_on_plate  # noqa: E402
 
 from .guikit import ARTIFACTS  # noqa: E402
@@ -222,7 +222,7 @@ def test_zth_view_lumped_body_against_the_lumped_capacitance_solution(qtbot, tmp
 
 
 def test_zth_view_matches_the_command_and_exports_its_files(qtbot, tmp_path, open_main_window):
-    from solver.answers_cli import zth_to_folder
+    from solver.answers.commands import zth_to_folder
 
     d = chip_on_plate()
     d["parts"].append({"name": "chip2", "material": "mould-compound", "origin_mm": [3, 3, 3],
@@ -278,7 +278,7 @@ def test_sweep_from_the_app_shows_the_cases_of_the_command(qtbot, tmp_path, open
     the serial run of the same sweep in this process (``thermgui sweep``'s own code)."""
     import json
 
-    from solver.sweep import sweep_to_folder
+    from solver.answers.sweep import sweep_to_folder
 
     save_model(parse_model(chip_on_plate()), tmp_path / "chip.json")
     sweep = tmp_path / "corners.json"

@@ -7,7 +7,7 @@ from pathlib import Path
 import pytest
 
 from solver.errors import ModelError
-from solver.model import parse_model
+from solver.model.modelfile import parse_model
 from thermgui import edits
 
 SAMPLE = Path(__file__).resolve().parents[2] / "samples" / "outdoor_radio_box.json"

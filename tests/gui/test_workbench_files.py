@@ -8,7 +8,7 @@ import sys
 
 import pytest
 
-from solver.model import load_model
+from solver.model.modelfile import load_model
 from thermgui.fileops import recovery_file
 
 from .guikit import ROOT, SAMPLE, ScriptedPrompts
@@ -187,8 +187,8 @@ def test_thermgui_command_opens_a_window(tmp_path):
 def test_open_a_results_folder(open_main_window, tmp_path):
     """`thermgui open FOLDER` on a finished run opens the model stored with the run
     (showing the stored results is the results module's part, tested there)."""
-    from solver.cli import solve_to_folder
-    from solver.model import parse_model
+    from solver.run.cli import solve_to_folder
+    from solver.model.modelfile import parse_model
 
     cube = {"format": "thermgui-model", "version": 1, "title": "warm cube",
             "parts": [{"name": "cube", "material": "aluminium-6061", "origin_mm": [0, 0, 0],

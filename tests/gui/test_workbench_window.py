@@ -175,7 +175,7 @@ def test_material_picker_offers_library(main_window):
     w.item_tree.select("parts", w.document.model.part_index("main board"))
     picker = w.properties.forms["parts"].material
     offered = {picker.itemData(k) for k in range(picker.count())} - {None}
-    from solver.materials import BUILTIN_MATERIALS
+    from solver.model.materials import BUILTIN_MATERIALS
     assert set(BUILTIN_MATERIALS) <= offered
     picker.choose("copper")
     assert part(w, "main board").material == "copper"

@@ -1,7 +1,7 @@
 """Entry fields with units: a number box that commits on Enter / focus loss, and an x-y-z triple.
 
 A field only parses text; whether the value is allowed is decided by the model check
-(:func:`solver.model.parse_model`) when the form commits it, so every limit has one home.
+(:func:`solver.model.modelfile.parse_model`) when the form commits it, so every limit has one home.
 """
 from __future__ import annotations
 

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from PySide6.QtWidgets import QComboBox, QFormLayout, QLabel, QLineEdit, QPushButton, QVBoxLayout, QWidget
 
-from solver.model import MASS_KINDS, SCHEMES, SIDES
+from solver.model.modelfile import MASS_KINDS, SCHEMES, SIDES
 
 from .. import edits
 from .fields import TIME_UNITS, NumberField, Vec3Field

@@ -9,7 +9,7 @@ from PySide6.QtCore import Signal
 from PySide6.QtGui import QStandardItem
 from PySide6.QtWidgets import QComboBox
 
-from solver.materials import BUILTIN_MATERIALS
+from solver.model.materials import BUILTIN_MATERIALS
 
 
 def describe(mat) -> str:
@@ -35,7 +35,7 @@ class MaterialPicker(QComboBox):
         self.activated.connect(self._activated)
 
     def set_choices(self, model, current: str) -> None:
-        """Fill from ``model`` (solver.model.Model) and show ``current``."""
+        """Fill from ``model`` (solver.model.modelfile.Model) and show ``current``."""
         self._loading = True
         try:
             self.clear()

@@ -1,6 +1,6 @@
 """Editor for a time profile (watts for a heat load, °C for surroundings) with a preview plot.
 
-The preview evaluates the profile with :func:`solver.profiles.make_profile` over the study's
+The preview evaluates the profile with :func:`solver.model.profiles.make_profile` over the study's
 duration; the curve is drawn with pyqtgraph. ``profileCommitted(dict)`` carries a profile in
 the model-file form (see docs/model-format.md); the owner validates and commits it.
 """
@@ -13,7 +13,7 @@ from PySide6.QtWidgets import (QAbstractItemView, QComboBox, QFormLayout, QHBoxL
                                QPushButton, QSizePolicy, QStackedWidget, QTableWidget, QTableWidgetItem,
                                QVBoxLayout, QWidget)
 
-from solver.profiles import make_profile
+from solver.model.profiles import make_profile
 
 from ..runresults.timefmt import format_time, time_unit
 from .fields import NumberField, format_number, parse_number

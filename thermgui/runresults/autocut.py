@@ -10,7 +10,7 @@ import math
 
 import numpy as np
 
-from solver.results import PEAK_COLUMNS
+from solver.results.recorder import PEAK_COLUMNS
 
 MARGIN_MM = 1.0  # the cut plane lies this far above the top of the hot part
 
@@ -69,8 +69,8 @@ def revealing_cut_z(point_mm, points_mm, part_bounds_mm=None, margin_mm: float =
 def likely_hot_spot(model) -> tuple[str, tuple[float, float, float]] | None:
     """Before any result: the heated part with the highest power density (largest level of its
     profile over its box volume, W/mm³) and the centre of its top face (mm) - where the first hot
-    spot will be. ``model`` is a validated :class:`solver.model.Model`; None without heat loads."""
-    from solver.model import profile_levels
+    spot will be. ``model`` is a validated :class:`solver.model.modelfile.Model`; None without heat loads."""
+    from solver.model.modelfile import profile_levels
 
     best = None
     for hl in model.heat_loads:

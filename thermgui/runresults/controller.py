@@ -19,7 +19,7 @@ from PySide6.QtGui import QAction, QKeySequence
 from PySide6.QtWidgets import (QCheckBox, QComboBox, QHBoxLayout, QLabel, QSizePolicy, QSlider, QSplitter,
                                QStyle, QVBoxLayout, QWidget)
 
-from solver.results import PEAK_COLUMNS
+from solver.results.recorder import PEAK_COLUMNS
 
 from ..fileops import display_path
 from .autocut import box_visible, likely_hot_spot, revealing_cut_z

@@ -9,7 +9,7 @@ from PySide6.QtGui import QBrush, QColor, QFont, QGuiApplication, QKeySequence
 from PySide6.QtWidgets import (QAbstractItemView, QHBoxLayout, QHeaderView, QLabel, QPushButton, QTableWidget,
                                QTableWidgetItem, QVBoxLayout, QWidget)
 
-from solver.results import PEAK_COLUMNS
+from solver.results.recorder import PEAK_COLUMNS
 
 from .peakview import VERDICT_FILL, VERDICT_TEXT, columns, display_row, review_order
 from .store import peaks_tsv

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import math
 
-from solver.results import PEAK_COLUMNS, PeakRow, sort_for_review
+from solver.results.recorder import PEAK_COLUMNS, PeakRow, sort_for_review
 
 from .timefmt import time_unit
 
@@ -37,7 +37,7 @@ def row_to_peak(row: list[str]) -> PeakRow:
 
 
 def review_order(rows: list[list[str]]) -> list[int]:
-    """Indices of ``rows`` in review order: :func:`solver.results.sort_for_review` (over, at risk,
+    """Indices of ``rows`` in review order: :func:`solver.results.recorder.sort_for_review` (over, at risk,
     ok by margin, unrated)."""
     peaks = [row_to_peak(r) for r in rows]
     ranked = sort_for_review(list(peaks))

@@ -11,9 +11,9 @@ from pathlib import Path
 from PySide6.QtWidgets import QFileDialog
 
 from solver.errors import ModelError
-from solver.fieldseries import FIELD_FILE
-from solver.runfolder import is_run_folder, load_run
-from solver.runstore import foreign_files
+from solver.io.fieldseries import FIELD_FILE
+from solver.io.runfolder import is_run_folder, load_run
+from solver.io.runstore import foreign_files
 
 from .store import ResultsStore, results_folder_for
 
@@ -190,7 +190,7 @@ def previous_run(folder: Path) -> str | None:
 
     The run never empties the folder: it replaces only the files the earlier run listed (its
     manifest, or run.json and field.pvd for folders written before manifests) and keeps every other
-    file (solver/runstore.py)."""
+    file (solver/io/runstore.py)."""
     folder = Path(folder)
     if not folder.is_dir() or not ((folder / "manifest.json").is_file() or (folder / "run.json").is_file()):
         return None

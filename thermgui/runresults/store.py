@@ -3,8 +3,8 @@
 A :class:`ResultsStore` keeps the tetrahedral geometry (mm), the output times (s), one float32
 temperature frame (°C) per output time, the part maxima at those times (°C), the ratings and,
 once the run has finished, the peak table as the exact text rows of ``peaks.csv``. It is filled
-either live from a :class:`solver.session.RunSession` (one frame per output event) or at once
-from a finished results folder (:func:`solver.runfolder.load_run`).
+either live from a :class:`solver.run.session.RunSession` (one frame per output event) or at once
+from a finished results folder (:func:`solver.io.runfolder.load_run`).
 """
 from __future__ import annotations
 
@@ -15,8 +15,8 @@ from pathlib import Path
 
 import numpy as np
 
-from solver.mesh import MM
-from solver.results import PEAK_COLUMNS
+from solver.mesh.mesher import MM
+from solver.results.recorder import PEAK_COLUMNS
 
 
 def results_folder_for(model_path) -> Path:
@@ -64,7 +64,7 @@ class ResultsStore:
 
     @classmethod
     def from_finished(cls, run) -> "ResultsStore":
-        """All frames of a :class:`solver.runfolder.FinishedRun` (no solving)."""
+        """All frames of a :class:`solver.io.runfolder.FinishedRun` (no solving)."""
         geo = run.geometry()
         parts = run.model_dict.get("parts", [])
         names = list(run.info.get("part_names") or [p["name"] for p in parts])
@@ -115,7 +115,7 @@ class ResultsStore:
         return out
 
     def set_peak_rows(self, rows) -> None:
-        """Peak rows from :meth:`solver.session.RunSession.finish` (PeakRow objects)."""
+        """Peak rows from :meth:`solver.run.session.RunSession.finish` (PeakRow objects)."""
         self.peak_rows = [r.as_csv_row() for r in rows]
         self.complete = True
 

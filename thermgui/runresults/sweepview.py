@@ -1,5 +1,5 @@
 """A sweep file started from the app: its cases run on a Dask LocalCluster (``thermgui sweep``'s own
-:func:`solver.sweep.sweep_to_folder`, on a worker thread), then ``cases.csv`` is shown as a table
+:func:`solver.answers.sweep.sweep_to_folder`, on a worker thread), then ``cases.csv`` is shown as a table
 (over rows red, at-risk amber, as in the peak table) with the worst case per part above it.
 
 Results go to ``<sweep file stem>-cases/`` beside the sweep file (cases.csv, worst.csv, margin.png).
@@ -49,7 +49,7 @@ class _Lines(io.TextIOBase):
 
 def run(sweep_path, out_dir, workers=None, progress=None):
     """Run the sweep as ``thermgui sweep`` does (worker thread); the folder written, or the error."""
-    from solver.sweep import sweep_to_folder
+    from solver.answers.sweep import sweep_to_folder
 
     err = _Lines(progress or (lambda m: None))
     code = sweep_to_folder(sweep_path, out_dir, workers=workers, stream=io.StringIO(), err=err)

@@ -1,9 +1,9 @@
 """What-if after a run: the run's unit responses, built once on a worker thread, and each change of
-a load factor or the ambient offset answered by superposition (:mod:`solver.whatif`), also off the
+a load factor or the ambient offset answered by superposition (:mod:`solver.answers.whatif`), also off the
 window's thread, newest request first. The peak table and chart then show the what-if answer,
 marked as such; "Back to the run's answer" shows the run itself again.
 
-Where superposition does not hold the panel says why (:func:`solver.whatif.check_whatif`: radiation,
+Where superposition does not hold the panel says why (:func:`solver.answers.whatif.check_whatif`: radiation,
 a settled cycle, and whatever the solver refuses later), and nothing is computed.
 """
 from __future__ import annotations
@@ -12,8 +12,8 @@ from PySide6.QtCore import QObject, Qt
 from PySide6.QtWidgets import QFrame, QScrollArea
 
 from solver.errors import ModelError
-from solver.results import PEAK_COLUMNS
-from solver.whatif import check_whatif, evaluate, prepare_unit_responses
+from solver.results.recorder import PEAK_COLUMNS
+from solver.answers.whatif import check_whatif, evaluate, prepare_unit_responses
 
 from .jobs import Job
 from .whatifpanel import WhatIfPanel

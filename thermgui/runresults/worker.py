@@ -1,4 +1,4 @@
-"""The solver run on a worker thread: a :class:`RunWorker` drives :class:`solver.session.RunSession`.
+"""The solver run on a worker thread: a :class:`RunWorker` drives :class:`solver.run.session.RunSession`.
 
 All numerics stay in ``solver``; this object only forwards the step stream to the window as Qt
 signals. Fields are sent as float32 copies at output times, and in between at most every
@@ -17,7 +17,7 @@ import numpy as np
 from PySide6.QtCore import QObject, QThread, Signal, Slot
 
 from solver.errors import Cancelled
-from solver.session import RunSession
+from solver.run.session import RunSession
 
 from .messages import describe_error
 

@@ -1,8 +1,8 @@
 """Thermal impedance of the open model: Zth(t) curves on a log-time chart, the Foster fits, and
-export of zth.csv / foster.csv / cauer.csv / zth.json / spice/ through :mod:`solver.zthfiles`.
+export of zth.csv / foster.csv / cauer.csv / zth.json / spice/ through :mod:`solver.answers.zthfiles`.
 
-The curves are computed on a worker thread (:func:`solver.zth.compute_zth` on the file's mesh, then
-:func:`solver.answers_cli.fit_networks`); this module only draws and writes what they return.
+The curves are computed on a worker thread (:func:`solver.answers.zth.compute_zth` on the file's mesh, then
+:func:`solver.answers.commands.fit_networks`); this module only draws and writes what they return.
 """
 from __future__ import annotations
 
@@ -24,9 +24,9 @@ HEADINGS = ["Part", "Heated part", "Rth\nK/W", "Stages", "Fit error\n%", "Networ
 
 def compute(model, progress=None, cancelled=None):
     """(result, fits, cauers, warnings, fitted curves) for ``model`` (worker thread; solver calls only)."""
-    from solver.answers_cli import fit_networks
-    from solver.problem import build_problem
-    from solver.zth import compute_zth
+    from solver.answers.commands import fit_networks
+    from solver.fem.problem import build_problem
+    from solver.answers.zth import compute_zth
 
     problem = build_problem(model)
     result = compute_zth(problem, progress=progress)
@@ -230,7 +230,7 @@ class ZthControl(QObject):
 
     def export(self, folder) -> list:
         """Write the files of the shown curves into ``folder`` (the writers of ``thermgui zth``)."""
-        from solver.zthfiles import write_zth_outputs
+        from solver.answers.zthfiles import write_zth_outputs
 
         result, fits, cauers, _, _, title = self.answer
         return write_zth_outputs(folder, result, fits, cauers, title)
