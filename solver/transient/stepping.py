@@ -230,8 +230,12 @@ class Stepper:
             a = self.step_matrix(dt, theta)
             upper = p.pattern.upper() if p.pattern is not None and p._shares_pattern() else None
             s = make_solver(a, self.choice.method, upper=upper)
+        return self._cache_solver(key, s)
+
+    def _cache_solver(self, key, s):
+        """Keep a new factorization ``s`` under ``key``, closing the oldest beyond the cache size."""
         self.factorizations += 1
-        limit = MAX_CACHED_SOLVERS_SMALL if p.n_nodes < SMALL_PROBLEM_NODES else MAX_CACHED_SOLVERS
+        limit = MAX_CACHED_SOLVERS_SMALL if self.problem.n_nodes < SMALL_PROBLEM_NODES else MAX_CACHED_SOLVERS
         while len(self._solvers) >= limit:
             _, old = self._solvers.popitem(last=False)
             old.close()
@@ -350,13 +354,7 @@ class Stepper:
         # the chord iterations compute the residual in double precision, so a single-precision factor
         # needs no refinement of its own here (its error is one more thing the iterations contract)
         s = make_solver(a, self.choice.method, upper=p.pattern.upper() if shared else None, refine=False)
-        self.factorizations += 1
-        limit = MAX_CACHED_SOLVERS_SMALL if p.n_nodes < SMALL_PROBLEM_NODES else MAX_CACHED_SOLVERS
-        while len(self._solvers) >= limit:
-            _, old = self._solvers.popitem(last=False)
-            old.close()
-        self._solvers[key] = s
-        return s
+        return self._cache_solver(key, s)
 
     def _relinearise(self, d: np.ndarray) -> None:
         """Update the radiative slope at ``d`` and drop the factors built on the old one."""
