@@ -96,8 +96,11 @@ def watch():
 
     def finish():
         if AT_PEAK:
+            from solver.results.recorder import PEAK_COLUMNS
+
             row = next(r for r in win.results.table.shown_rows() if r[0] == AT_PEAK)
-            win.results.timeline.set_index(win.results.store.index_at(float(row[3])))
+            t_peak = float(row[PEAK_COLUMNS.index("peak_time_s")])  # by name: columns were added before it
+            win.results.timeline.set_index(win.results.store.index_at(t_peak))
         look(win)
         win.close()
 
