@@ -5,8 +5,8 @@ from PySide6.QtCore import Qt, Signal
 from PySide6.QtWidgets import QLabel, QScrollArea, QStackedWidget, QVBoxLayout, QWidget
 
 from .. import edits
-from .item_forms import (AirVolumeForm, ContactForm, ConvectionForm, HeatLoadForm, MaterialForm, PartForm,
-                         ProbeForm, StudyForm, SurfaceLoadForm)
+from .item_forms import ConvectionForm, HeatLoadForm, MaterialForm, PartForm, ProbeForm, StudyForm
+from .physics_forms import AirVolumeForm, ContactForm, SurfaceLoadForm
 
 KIND_TITLES = {"parts": "Part", "heat_loads": "Heat load", "convection": "Convection face", "probes": "Probe",
                "study": "Study settings", "materials": "Material", "surface_loads": "Surface flux",
