@@ -187,3 +187,27 @@ def test_method_is_validated_with_its_field_path():
     with pytest.raises(ModelError) as e:
         solver.parse_model(d)
     assert "run.method" in e.value.describe()
+
+
+def test_error_sweep_in_single_precision_matches_double():
+    """The basis-error estimate's sweep over every node picks rows in single precision but reports
+    a double-precision value: it equals the brute-force double maximum (to round-off) on random
+    data, including a spike on one node at one coarse sample."""
+    from solver.transient.reduced import estimate_error
+
+    rng = np.random.default_rng(7)
+    n, r, samples = 20_000, 12, 90
+    v = np.asfortranarray(rng.standard_normal((n, r)))
+    q_big = rng.standard_normal((r, samples)) * 30.0
+    q_small = q_big[:8] + 1e-3 * rng.standard_normal((8, samples))
+    nodes = np.array([3, 50, 700])
+    coarse = np.arange(0, samples, 3)
+    dq = q_big.copy()
+    dq[:8] -= q_small
+    exact = max(np.abs(v[nodes] @ dq).max(), np.abs(v @ dq[:, coarse]).max())
+    got = estimate_error(v, q_big, q_small, nodes, coarse)
+    assert got == pytest.approx(exact, rel=1e-12)
+    v[12_345] *= 40.0  # one node far off: the sweep must find it
+    exact = max(np.abs(v[nodes] @ dq).max(), np.abs(v @ dq[:, coarse]).max())
+    assert estimate_error(v, q_big, q_small, nodes, coarse) == pytest.approx(exact, rel=1e-12)
+    assert estimate_error(v, q_big, q_small, nodes) == pytest.approx(np.abs(v[nodes] @ dq).max(), rel=1e-12)

@@ -113,7 +113,8 @@ def _available_memory() -> int:
 
 def choose_method(n: int, requested: str = "auto", adaptive: bool = False,
                   available_bytes: int | None = None, factor_bytes: float | None = None,
-                  matrices: int = 1, steps: int | None = None) -> SolverChoice:
+                  matrices: int = 1, steps: int | None = None,
+                  factor_source: str = "measured by PARDISO's analysis") -> SolverChoice:
     """Method name and a one-line reason for a problem of ``n`` nodes.
 
     ``factor_bytes``: the double-precision factor of one step matrix as PARDISO's analysis
@@ -140,7 +141,7 @@ def choose_method(n: int, requested: str = "auto", adaptive: bool = False,
     est = float(factor_bytes) if factor_bytes is not None else estimated_factor_bytes(n)
     total = est * max(1, matrices)
     budget = min(DIRECT_MEMORY_SHARE * avail, DIRECT_MAX_BYTES)
-    how = "measured by PARDISO's analysis" if factor_bytes is not None else "estimated"
+    how = factor_source if factor_bytes is not None else "estimated"
     count = f"{matrices} step matrices, " if matrices > 1 else ""
     size = f"{n:,} nodes, {count}factor {how} {total / 1e9:.2g} GB of {avail / 1e9:.3g} GB available"
     if adaptive and n > ADAPTIVE_DIRECT_NODE_LIMIT:
@@ -261,6 +262,24 @@ def _upper(a: sp.csr_matrix, upper, dtype) -> sp.csr_matrix:
         u = sp.triu(a, format="csr").astype(dtype)
     u.sort_indices()
     return u
+
+
+FILL_EXPONENT = 4.0 / 3.0  # factor size ~ N^(4/3) under nested dissection on 3D grids (George 1973, from memory)
+FILL_SAFETY = 1.25  # margin on a factor size scaled from a smaller mesh of the same model
+
+
+def measured_double_factor_bytes(solver) -> int | None:
+    """The double-precision factor size (bytes) of a PARDISO factorization already made, or None
+    for other solvers. A single-precision factor reports half the bytes, so it is doubled."""
+    if not isinstance(solver, PardisoCholesky) or solver.ps is None:
+        return None
+    return solver.factor_bytes() * (2 if solver.single else 1)
+
+
+def scaled_factor_bytes(measured_bytes: float, measured_nodes: int, nodes: int) -> float:
+    """A factor size (bytes) for ``nodes`` predicted from one measured on ``measured_nodes`` nodes of
+    a similar mesh (the previous mesh level), with the N^(4/3) growth and a 25 % margin."""
+    return FILL_SAFETY * float(measured_bytes) * (nodes / max(1, measured_nodes)) ** FILL_EXPONENT
 
 
 def pardiso_factor_bytes(a: sp.csr_matrix, upper=None) -> int:

@@ -33,6 +33,7 @@ from solver.mesh.budget import check_budget, memory_limit
 from solver.mesh.mesher import BYTES_PER_NODE_ESTIMATE, available_memory_bytes, build_mesh, estimate_nodes
 from solver.mesh.meshreport import resolution_report
 from solver.fem.problem import build_problem
+from solver.linalg.linsolve import scaled_factor_bytes
 from solver.transient.reduced import DEFAULT_TOLERANCE_K as REDUCED_DEFAULT_TOLERANCE_K
 from solver.mesh.refinement import influence_fields, refined_lines
 from solver.results.recorder import PeakRow, RunRecorder
@@ -273,8 +274,11 @@ class RunSession:
             if not s.refine and (est > s.max_nodes or not memory_ok):
                 self.ladder.stop_reason = f"the estimate's next mesh (about {est:,} nodes) is over the budget"
                 break
+            measured, measured_nodes = self.stepper.factor_bytes_measured, self.problem.n_nodes
             self.problem = build_problem(self.model, build_mesh(self.model, lines_mm=lines))
-            self.stepper = self._stepper(self.problem)
+            hint = (None if measured is None else
+                    scaled_factor_bytes(measured, measured_nodes, self.problem.n_nodes))
+            self.stepper = self._stepper(self.problem, factor_bytes_hint=hint)
             self.level += 1
         if not s.refine:  # report the file's mesh: solve it again as the last level streamed
             self._null_bounds = self._coarse_bounds()

@@ -26,6 +26,7 @@ import numpy as np
 
 from solver.transient.loads import LoadCombiner
 from solver.errors import Cancelled, SolveError
+from solver.linalg.linsolve import measured_double_factor_bytes
 from solver.transient.krylov import KrylovBasis, mass_times
 from solver.transient.modal import ModalSystem
 from solver.transient.timegrid import output_times, plan_steps
@@ -154,14 +155,22 @@ def candidate_part_maxima(problem, values: np.ndarray, nodes: np.ndarray) -> np.
 def estimate_error(v: np.ndarray, q_big: np.ndarray, q_small: np.ndarray, nodes: np.ndarray,
                    coarse: np.ndarray | None = None) -> float:
     """max |V(q_big − [q_small; 0])| on ``nodes`` at every sample, and (given ``coarse`` sample
-    indices) on every node at those samples."""
+    indices) on every node at those samples.
+
+    The sweep over every node runs in single precision only to find, per sample, the node where
+    the difference is largest; those nodes' differences are then computed in double precision
+    (as the hot nodes' are), so the returned value is a double-precision one."""
     dq = q_big.copy()
     dq[:q_small.shape[0]] -= q_small
     r = q_big.shape[0]
     err = float(np.abs(v[nodes, :r] @ dq).max()) if len(nodes) else 0.0
-    for s in range(0, 0 if coarse is None else len(coarse), CHUNK):
-        err = max(err, float(np.abs(v[:, :r] @ dq[:, coarse[s:s + CHUNK]]).max()))
-    return err
+    if coarse is None or not len(coarse):
+        return err
+    v32 = np.asarray(v[:, :r], dtype=np.float32)
+    dq32 = dq[:, coarse].astype(np.float32)
+    rows = [np.argmax(np.abs(v32 @ dq32[:, s:s + CHUNK]), axis=0) for s in range(0, dq32.shape[1], CHUNK)]
+    rows = np.unique(np.concatenate(rows))
+    return max(err, float(np.abs(v[rows, :r] @ dq[:, coarse]).max()))
 
 
 def event_indices(problem, grid: SampleGrid, cand_max: np.ndarray) -> np.ndarray:
@@ -194,6 +203,7 @@ def run_reduced(stepper) -> Iterator:
     t_factor = _time.perf_counter()
     basis = KrylovBasis(p, info.shift_per_s, method=method, cancel=stepper.cancel, max_columns=max_columns)
     stepper.factorizations += 1
+    stepper.factor_bytes_measured = measured_double_factor_bytes(basis.solver)
     info.factor_s = _time.perf_counter() - t_factor
     try:
         proj = ProjectedRun(p, basis, grid)

@@ -23,7 +23,8 @@ import scipy.sparse.linalg as spla
 
 from solver.errors import Cancelled, ModelError, SolveError
 from solver.transient.methodchoice import METHODS, RunShape, choose_run_method
-from solver.linalg.linsolve import DiagonalSolver, choose_method, make_solver, needs_analysis, pardiso_factor_bytes
+from solver.linalg.linsolve import (DiagonalSolver, choose_method, make_solver, measured_double_factor_bytes,
+                                    needs_analysis, pardiso_factor_bytes)
 from solver.transient.timegrid import TimeStep, output_times, plan_steps
 
 THETA = {"backward-euler": 1.0, "crank-nicolson": 0.5, "forward-euler": 0.0}
@@ -87,8 +88,11 @@ class Stepper:
     """
 
     def __init__(self, problem, cancel: Callable[[], bool] | None = None, linear_solver: str = "auto",
-                 damp_after_jumps: bool = True, tolerance_k: float | None = None, method: str | None = None):
+                 damp_after_jumps: bool = True, tolerance_k: float | None = None, method: str | None = None,
+                 factor_bytes_hint: float | None = None):
         self.problem = problem
+        self.factor_bytes_hint = factor_bytes_hint  # predicted double factor (bytes), replaces PARDISO's analysis
+        self.factor_bytes_measured: int | None = None  # of the first PARDISO factorization this run made
         run = problem.model.run
         self.cancel = cancel
         requested = method or getattr(run, "method", None) or "auto"
@@ -176,12 +180,16 @@ class Stepper:
             if getattr(p, "radiation", None) is not None:
                 steps *= 3  # solves, not steps: radiation takes 2-3 chord iterations per step (docs/physics.md)
         explicit = self.method == "full" and not self.adaptive and self.theta == 0.0  # diagonal solves only
-        factor_bytes = None
-        if not explicit and needs_analysis(p.n_nodes, requested, adaptive, matrices):
+        factor_bytes, source = None, "measured by PARDISO's analysis"
+        if not explicit and self.factor_bytes_hint is not None and needs_analysis(p.n_nodes, requested, adaptive,
+                                                                                  matrices):
+            factor_bytes = float(self.factor_bytes_hint)  # scaled from the previous mesh level's measured factor
+            source = "scaled from the previous mesh's factor"
+        elif not explicit and needs_analysis(p.n_nodes, requested, adaptive, matrices):
             upper = p.pattern.upper() if p.pattern is not None and p._shares_pattern() else None
             factor_bytes = pardiso_factor_bytes(p.step_matrix(1.0, 1.0), upper)
         return choose_method(p.n_nodes, requested, adaptive=adaptive, factor_bytes=factor_bytes, matrices=matrices,
-                             steps=steps)
+                             steps=steps, factor_source=source)
 
     def _check_explicit_stability(self) -> None:
         """Refuse forward Euler above its critical step (ModelError naming run.step_s)."""
@@ -235,6 +243,8 @@ class Stepper:
     def _cache_solver(self, key, s):
         """Keep a new factorization ``s`` under ``key``, closing the oldest beyond the cache size."""
         self.factorizations += 1
+        if self.factor_bytes_measured is None:
+            self.factor_bytes_measured = measured_double_factor_bytes(s)
         limit = MAX_CACHED_SOLVERS_SMALL if self.problem.n_nodes < SMALL_PROBLEM_NODES else MAX_CACHED_SOLVERS
         while len(self._solvers) >= limit:
             _, old = self._solvers.popitem(last=False)
