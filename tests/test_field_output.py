@@ -90,6 +90,42 @@ def test_writer_failure_is_an_oserror_naming_the_folder(tmp_path, problem):
     w.abort()  # idempotent after the failure
 
 
+def test_a_writer_thread_that_ends_unexpectedly_is_reported_not_waited_for(tmp_path, problem, monkeypatch):
+    """Found in use: the writer thread died outside its error handling and the run waited on a
+    full queue forever. Now the caller notices the thread is gone and raises."""
+    import threading
+
+    monkeypatch.setattr(FieldWriter, "_work", lambda self, geometry: None)  # ends at once, no error recorded
+    w = FieldWriter(tmp_path, problem, queue_frames=1)
+    outcome = {}
+
+    def feed():
+        try:
+            for k in range(5):
+                w(float(k), np.zeros(problem.n_nodes))
+            outcome["result"] = "returned"
+        except FieldWriteError as e:
+            outcome["result"] = str(e)
+
+    t = threading.Thread(target=feed, daemon=True)
+    t.start()
+    t.join(timeout=20.0)
+    assert not t.is_alive(), "the caller is still waiting on a writer that no longer exists"
+    assert "stopped unexpectedly" in outcome["result"] and str(tmp_path) in outcome["result"]
+
+
+def test_a_missing_hdf5_package_is_reported_before_any_solving(tmp_path, problem, monkeypatch):
+    import solver.io.fieldseries as fs
+
+    def missing():
+        raise OSError("the field file needs the h5py package (No module named 'h5py')")
+
+    monkeypatch.setattr(fs, "_h5py", missing)
+    with pytest.raises(OSError, match="h5py"):
+        FieldWriter(tmp_path, problem)
+    FieldWriter(tmp_path, problem, fields="none").close()  # no field file, no package needed
+
+
 def test_cli_exit_1_with_the_folder_named_when_the_field_cannot_be_written(tmp_path):
     model = tmp_path / "chip.json"
     model.write_text(json.dumps(chip_on_plate()))

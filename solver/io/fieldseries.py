@@ -80,6 +80,7 @@ class FieldWriter:
         self._thread = None
         if fields == "none":
             return
+        _h5py()  # a missing package is reported now, before any solving, not from the thread
         self.n_points = int(problem.mesh.n_nodes)
         self._queue: queue.Queue = queue.Queue(maxsize=max(1, queue_frames))
         self._files.append(FIELD_FILE)
@@ -103,6 +104,7 @@ class FieldWriter:
                 break
             except queue.Full:
                 self._raise_if_failed()
+                self._raise_if_gone()
         self.n_frames += 1
 
     def close(self) -> None:
@@ -127,6 +129,12 @@ class FieldWriter:
         except OSError:
             pass
 
+    def _raise_if_gone(self) -> None:
+        """The writer thread ended without recording why (it must never leave the caller waiting)."""
+        if self._thread is not None and not self._thread.is_alive() and self._error is None:
+            self._error = RuntimeError("the writer stopped unexpectedly")
+        self._raise_if_failed()
+
     def _raise_if_failed(self) -> None:
         e = self._error
         if e is None:
@@ -141,9 +149,9 @@ class FieldWriter:
     def _work(self, geometry) -> None:
         import time
 
-        h5py = _h5py()
         fh = None
         try:
+            h5py = _h5py()
             t0 = time.perf_counter()
             fh = h5py.File(self.out_dir / FIELD_FILE, "w")
             temp, steps = self._create(fh, *geometry)
