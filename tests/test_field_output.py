@@ -124,6 +124,12 @@ def test_a_missing_hdf5_package_is_reported_before_any_solving(tmp_path, problem
     with pytest.raises(OSError, match="h5py"):
         FieldWriter(tmp_path, problem)
     FieldWriter(tmp_path, problem, fields="none").close()  # no field file, no package needed
+    model = tmp_path / "chip.json"
+    model.write_text(json.dumps(chip_on_plate()))
+    err = io.StringIO()
+    assert solve_to_folder(model, tmp_path / "out", quiet=True, err=err) == 1
+    assert "h5py" in err.getvalue() and "Traceback" not in err.getvalue()
+    assert not (tmp_path / "out").exists()  # nothing half-written where the user asked for results
 
 
 def test_cli_exit_1_with_the_folder_named_when_the_field_cannot_be_written(tmp_path):
