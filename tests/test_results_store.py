@@ -93,6 +93,25 @@ def test_colour_range_is_global_unless_per_frame(solved):
     assert hi0 - lo0 == pytest.approx(1.0)
 
 
+def test_live_colour_range_keeps_the_starting_temperature_as_its_cool_end(tmp_path):
+    """Found by a GUI test that failed once in a full run: with only the uniform t = 0 frame
+    stored, the padded range (25 ± 0.5) put the live scale's cool end at 24.5 °C."""
+    import solver
+    from thermgui.runresults.resultdisplay import LIVE_MIN_SPAN_K, live_colour_range
+
+    problem = solver.build_problem(solver.parse_model(chip_on_plate()))
+    store = ResultsStore.for_problem(problem, tmp_path)
+    n = problem.n_nodes
+    store.add_frame(0.0, np.full(n, 25.0))
+    assert store.colour_range(None, False) == pytest.approx((24.5, 25.5))  # padded, for a still view
+    warmer = np.linspace(25.0, 27.0, n)  # a live frame between outputs
+    lo, hi = live_colour_range(*store.colour_range(None, False, pad=False), warmer)
+    assert lo == pytest.approx(25.0) and hi == pytest.approx(25.0 + LIVE_MIN_SPAN_K)
+    empty = ResultsStore.for_problem(problem, tmp_path)
+    assert live_colour_range(*empty.colour_range(None, False, pad=False), warmer) == \
+        pytest.approx((25.0, 25.0 + LIVE_MIN_SPAN_K))
+
+
 def test_over_rating_sets(solved):
     live = solved["live"]
     assert live.over_at(0) == set()  # everything starts at 25 °C

@@ -367,7 +367,7 @@ class ResultsController(LookInside, ResultFiles, ResultDisplay, QObject):
             self._update_chart()
         if following and self._live is not None and self._live[0] > s.times[-1]:
             t, f = self._live
-            lo, hi = s.colour_range(None, False)
+            lo, hi = s.colour_range(None, False, pad=False)  # unpadded: the cool end stays at the start
             self.view.show_field(f, live_colour_range(lo, hi, f), paint=False)
             self._show_time(t, computing=True)
         elif following or not self.running:

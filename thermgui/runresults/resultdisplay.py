@@ -38,9 +38,10 @@ class ResultDisplay:
         if s is None or not s.n_frames or not self.results_shown:
             return
         i = max(0, min(i, s.n_frames - 1))
-        clim = s.colour_range(i, self.rescale_box.isChecked())
         if self.running and not self.rescale_box.isChecked():
-            clim = live_colour_range(clim[0], clim[1], s.frame(i))
+            clim = live_colour_range(*s.colour_range(None, False, pad=False), s.frame(i))
+        else:
+            clim = s.colour_range(i, self.rescale_box.isChecked())
         self.view.show_field(s.frame(i), clim, paint=paint)
         t = s.times[i]
         self._show_time(t)

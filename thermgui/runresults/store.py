@@ -134,13 +134,19 @@ class ResultsStore:
         t = np.asarray(self.times)
         return int(np.argmin(np.abs(t - time_s)))
 
-    def colour_range(self, i: int | None = None, per_frame: bool = False) -> tuple[float, float]:
-        """°C range for the colour scale: over every frame so far, or of frame ``i`` only."""
+    def colour_range(self, i: int | None = None, per_frame: bool = False,
+                     pad: bool = True) -> tuple[float, float]:
+        """°C range for the colour scale: over every frame so far, or of frame ``i`` only.
+
+        ``pad``: widen a range narrower than 1 µK to ±0.5 K (and give 0–1 when empty); without it
+        the raw extremes come back (±inf when empty), for a caller that widens in its own way."""
         if per_frame and i is not None and self.frames:
             f = self.frames[i]
             lo, hi = float(f.min()), float(f.max())
         else:
             lo, hi = self._lo, self._hi
+        if not pad:
+            return lo, hi
         if not np.isfinite(lo) or not np.isfinite(hi):
             return 0.0, 1.0
         if hi - lo < 1e-6:
