@@ -257,6 +257,9 @@ class RunSession:
             solver_err = self._solver_error(self.stepper)
             if k == 0:
                 self._time_check()
+            own_time_error = getattr(getattr(self.stepper, "reduced_info", None), "time_error_k", None)
+            if own_time_error is not None:  # a radiating reduced run checks its own steps, on every mesh
+                self.ladder.time_error = np.asarray(own_time_error, dtype=float)
             self.ladder.add(self.problem, self.recorder.peak.copy(), self._level_wall, self.stepper.method, solver_err)
             if not s.refine and k >= 2:
                 break

@@ -49,6 +49,18 @@ def load_patterns(problem) -> np.ndarray:
     return np.column_stack(cols) if cols else np.zeros((n, 0))
 
 
+def add_diagonal(problem, a, diagonal: np.ndarray):
+    """``a`` + diag(``diagonal``) for a matrix made by ``problem.step_matrix`` (kept on the grid's
+    shared pattern when the problem's matrices share it)."""
+    if problem._shares_pattern():
+        data = a.data.copy()
+        data[problem.pattern.diagonal] += diagonal
+        return problem.pattern.matrix(data)
+    import scipy.sparse as sp
+
+    return (a + sp.diags(diagonal)).tocsr()
+
+
 def mass_times(problem, x: np.ndarray) -> np.ndarray:
     """M·x for a vector (N,) or block (N, k): lumped diagonal or consistent sparse."""
     if problem.capacity is not None:
@@ -64,7 +76,10 @@ class KrylovBasis:
     """
 
     def __init__(self, problem, shift: float, method: str = "pardiso",
-                 cancel: Callable[[], bool] | None = None, max_columns: int = 256):
+                 cancel: Callable[[], bool] | None = None, max_columns: int = 256,
+                 extra_diagonal: np.ndarray | None = None, extra_patterns: np.ndarray | None = None):
+        """``extra_diagonal`` (N,) W/K is added to K + s·M (a linearised radiation slope), and the
+        columns of ``extra_patterns`` (N, m) start the sequence beside the load patterns."""
         self.problem = problem
         self.shift = float(shift)
         self.cancel = cancel
@@ -74,12 +89,17 @@ class KrylovBasis:
         upper = problem.pattern.upper() if problem.pattern is not None and problem._shares_pattern() else None
         # K + s·M; basis directions need no refinement of a single-precision factorization's solves
         # (the projection is exact on whatever the basis spans; the error check judges the result)
-        self.solver = make_solver(problem.step_matrix(1.0 / self.shift, 1.0), method, upper=upper, refine=False)
+        a = problem.step_matrix(1.0 / self.shift, 1.0)
+        if extra_diagonal is not None:
+            a = add_diagonal(problem, a, extra_diagonal)  # on the same pattern: ``upper`` still holds
+        self.solver = make_solver(a, method, upper=upper, refine=False)
         n = problem.n_nodes
         start = [np.ones(n)]
         if np.ptp(problem.initial) > 0.0:
             start.append(problem.initial.astype(float))
         self._next_rhs = load_patterns(problem)
+        if extra_patterns is not None and extra_patterns.shape[1]:
+            self._next_rhs = np.column_stack([self._next_rhs, extra_patterns])
         self._store = np.zeros((n, max_columns), order="F")  # V[:, :r] stays contiguous for BLAS
         self.size = 0
         self.block_sizes: list[int] = []

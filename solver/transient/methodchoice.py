@@ -12,7 +12,10 @@ our own runs, not a published source):
   distinct load shape) until its error estimate is met, typically ``EXPECTED_BLOCKS`` blocks;
 - every field the reduced run hands out (outputs, peaks) is a product V·q, about
   r / ``RECONSTRUCT_PER_SOLVE`` solves;
-- a forward-Euler step is a mat-vec and a diagonal scaling, about ``EXPLICIT_STEP`` of a solve.
+- a forward-Euler step is a mat-vec and a diagonal scaling, about ``EXPLICIT_STEP`` of a solve;
+- with radiation a full step takes about ``NONLINEAR_SOLVES_PER_STEP`` chord iterations (one solve
+  each) and the slope is re-factored about ``NONLINEAR_REFACTORS`` times in a run (docs/physics.md);
+  the reduced run's Newton iterations are on the small projected system, so its cost stays as above.
 
 The reduced run is chosen only when its predicted cost is below ``MARGIN`` times the full
 system's (it falls back to stepping the full system when its basis does not converge, and then
@@ -31,6 +34,8 @@ EXPLICIT_STEP = 0.05
 ADAPTIVE_SOLVES_PER_STEP = 2.0  # TR-BDF2: two stages
 ADAPTIVE_MATRICES = 4  # ladder rungs typically factored in an adaptive run
 MARGIN = 0.5
+NONLINEAR_SOLVES_PER_STEP = 3.0
+NONLINEAR_REFACTORS = 4
 
 
 @dataclass(frozen=True)
@@ -46,6 +51,7 @@ class RunShape:
     events: int
     explicit: bool = False
     adaptive: bool = False
+    nonlinear: bool = False  # radiation: chord-Newton iterations in every full step
     max_columns: int = 256
 
 
@@ -64,6 +70,8 @@ def predicted_costs(shape: RunShape) -> tuple[float, float, int]:
         full = shape.steps * EXPLICIT_STEP
     elif shape.adaptive:
         full = ADAPTIVE_MATRICES * FACTOR_SOLVES + ADAPTIVE_SOLVES_PER_STEP * shape.steps
+    elif shape.nonlinear:
+        full = (shape.step_matrices + NONLINEAR_REFACTORS) * FACTOR_SOLVES + NONLINEAR_SOLVES_PER_STEP * shape.steps
     else:
         full = shape.step_matrices * FACTOR_SOLVES + shape.steps
     columns = 1 + max(1, shape.load_shapes) * EXPECTED_BLOCKS

@@ -52,6 +52,7 @@ class ReducedInfo:
     factor_s: float = 0.0  # wall time of the factorization(s)
     basis_s: float = 0.0  # wall time from the start of the run to an accepted basis
     history: list = field(default_factory=list)  # (basis size, error estimate K) at each check
+    time_error_k: list | None = None  # per part (K), radiating runs only: the time steps' error (step halving)
 
     def describe(self) -> str:
         return (f"reduced basis of {self.basis_size} vectors ({self.blocks} blocks, shift {self.shift_per_s:.3g}/s), "

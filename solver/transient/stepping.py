@@ -128,22 +128,17 @@ class Stepper:
         else:
             self.scheme = run.scheme
             self.theta = THETA[run.scheme]
+            self.damp_after_jumps = damp_after_jumps
             self.steps = plan_steps(float(run.duration_s), float(run.step_s), self.theta,
                                     problem.breakpoints(float(run.duration_s)), self.outputs, damp_after_jumps)
             self._n_steps_estimate = len(self.steps)
         self.method_choice = choose_run_method(self._run_shape(), requested)
         self.newton = None  # radiation: iteration counts (see _run_radiative)
-        if getattr(problem, "radiation", None) is not None and requested != "full":
-            names = ", ".join(repr(n) for n in problem.radiation.names)
-            self.method_choice = dataclasses.replace(
-                self.method_choice, method="full",
-                reason=(f"run.method = {requested!r}, but radiation (emissivity on {names}) makes the model "
-                        "nonlinear and the reduced basis needs a linear one, so the full system is stepped "
-                        "(chord-Newton iterations in each step)"))
         self.method = self.method_choice.method
         if self.method == "reduced":
             self._full_plan = (self.scheme, self._n_steps_estimate)
-            self.scheme = "reduced basis (exact in time)"
+            self.scheme = ("reduced basis (exact in time)" if getattr(problem, "radiation", None) is None else
+                           f"reduced basis ({run.scheme} steps, radiation by Newton's method)")
             self._n_steps_estimate = len(self.outputs) - 1
         else:
             self._check_explicit_stability()
@@ -157,7 +152,9 @@ class Stepper:
         for _, amb in p.conv_loads:  # convection entries sharing an ambient profile share a basis column
             if not any(amb == g for g in groups):
                 groups.append(amb)
-        shapes = p.n_watt_loads + len(groups) + (1 if np.ptp(p.initial) > 0.0 else 0)
+        rad = getattr(p, "radiation", None)
+        shapes = (p.n_watt_loads + len(groups) + (1 if np.ptp(p.initial) > 0.0 else 0)
+                  + (len(rad.names) if rad is not None else 0))
         implicit = [s for s in self.steps if s.theta > 0.0]
         from solver.transient.reduced import MAX_BASIS_BYTES, MAX_COLUMNS
 
@@ -165,6 +162,7 @@ class Stepper:
                         step_matrices=max(1, len({(round(s.dt, 12), s.theta) for s in implicit})),
                         load_shapes=shapes, events=len(self.outputs) + 2 * len(p.model.parts),
                         explicit=not self.adaptive and self.theta == 0.0, adaptive=self.adaptive,
+                        nonlinear=rad is not None,
                         max_columns=int(min(MAX_COLUMNS, MAX_BASIS_BYTES // (8 * max(1, p.n_nodes)))))
 
     def _choose_solver(self, requested: str):
@@ -275,6 +273,10 @@ class Stepper:
 
     def __iter__(self) -> Iterator[StepEvent]:
         if self.method == "reduced":
+            if getattr(self.problem, "radiation", None) is not None:
+                from solver.transient.reduced_radiative import run_reduced_radiative
+
+                return run_reduced_radiative(self)
             from solver.transient.reduced import run_reduced
 
             return run_reduced(self)
