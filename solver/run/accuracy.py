@@ -34,12 +34,12 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 
 from solver.mesh.meshreport import part_resolution
+from solver.transient.timegrid import TIME_SAFETY, time_error_bound  # noqa: F401  (re-exported)
 
 FS_THREE = 1.25
 FS_TWO = 3.0
 P_MIN, P_MAX = 0.5, 2.0
 P_TWO_GRIDS = 1.0
-TIME_SAFETY = 1.25
 GROWTH_PER_LEVEL = 1.9  # planned node growth of a level (the indicator marking allows up to 2x cells)
 MESH_SHARE_WHEN_TIME_DOMINATES = 0.3  # stop refining once the mesh's share is this small
 MIN_LEVELS_TO_ACCEPT = 3  # a bound from fewer levels uses the two-grid factor and rarely passes
@@ -145,12 +145,6 @@ def mesh_error_bound(peaks: list[np.ndarray], nodes: list[int]):
         medium = abs(e32[i]) / (r32**p - 1.0) - abs(e21[i])
         bound[i] = FS_THREE * max(fine, medium)
     return bound, orders
-
-
-def time_error_bound(phi_dt: np.ndarray, phi_half: np.ndarray, scheme: str) -> np.ndarray:
-    """Error (K) of peaks at step Δt from a step-halving twin (Richardson in time)."""
-    q = 2.0 if scheme == "crank-nicolson" else 1.0
-    return TIME_SAFETY * np.abs(np.asarray(phi_dt) - np.asarray(phi_half)) * 2**q / (2**q - 1.0)
 
 
 @dataclass

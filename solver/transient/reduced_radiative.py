@@ -14,7 +14,7 @@ Radiation makes M d' + K d + R(d, t) = F(t) nonlinear (R: the grey-body loss of
 3. The basis error is estimated as in the linear case (against the basis one block smaller, on
    each part's hottest nodes and on every node at coarse times). The time-step error is
    estimated by stepping the same projected system again with half of run.step_s (the plan a
-   run with that step would take; Richardson, see :func:`solver.run.accuracy.time_error_bound`),
+   run with that step would take; Richardson, see :func:`solver.transient.timegrid.time_error_bound`),
    per part, and reported with the run.
 
 Energy: 1 is in the basis, so the projected θ scheme keeps the global balance to the Newton
@@ -34,6 +34,7 @@ from solver.fem.radiation import KELVIN, MAX_ITER
 from solver.linalg.linsolve import measured_double_factor_bytes
 from solver.transient.krylov import KrylovBasis
 from solver.transient.loads import LoadCombiner
+from solver.transient.timegrid import time_error_bound
 from solver.transient.reduced import (DEFAULT_TOLERANCE_K, MAX_BASIS_BYTES, MAX_BLOCKS, MAX_COLUMNS, MIN_BLOCKS,
                                       ProjectedRun, ReducedInfo, SampleGrid, candidate_part_maxima, estimate_error,
                                       event_indices, hottest_nodes)
@@ -181,8 +182,6 @@ def _peaks_on(problem, v, q, nodes) -> np.ndarray:
 
 def run_reduced_radiative(stepper) -> Iterator:
     """Generator of StepEvents for a reduced-basis run of a radiating model (see module doc)."""
-    from solver.run.accuracy import time_error_bound
-
     p = stepper.problem
     run = p.model.run
     t_start = _time.perf_counter()

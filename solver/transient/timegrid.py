@@ -9,6 +9,7 @@ from dataclasses import dataclass
 import numpy as np
 
 TIME_TOL = 1e-9  # seconds; breakpoints closer than this are merged
+TIME_SAFETY = 1.25  # safety factor on a step-halving estimate
 
 
 @dataclass(frozen=True)
@@ -76,3 +77,10 @@ def plan_steps(duration: float, step: float, theta: float, breakpoints, outputs,
             else:
                 steps.append(TimeStep(t0, t1, theta, is_out))
     return steps
+
+
+def time_error_bound(phi_dt: np.ndarray, phi_half: np.ndarray, scheme: str) -> np.ndarray:
+    """Error (K) of peaks at step Δt from a step-halving twin (Richardson in time): |φ(Δt) − φ(Δt/2)|
+    · 2^q/(2^q − 1) · TIME_SAFETY, q = 2 for Crank–Nicolson, 1 otherwise."""
+    q = 2.0 if scheme == "crank-nicolson" else 1.0
+    return TIME_SAFETY * np.abs(np.asarray(phi_dt) - np.asarray(phi_half)) * 2**q / (2**q - 1.0)
