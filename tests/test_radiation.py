@@ -146,6 +146,20 @@ def test_reduced_radiative_bounds_its_own_errors_against_the_semi_discrete_syste
     assert err.max() > 0.005 and bound.max() < 10.0 * err.max() + 0.02, (err, bound)
 
 
+def test_reduced_run_whose_iterations_fail_steps_the_full_system_and_says_so(monkeypatch):
+    import solver.transient.reduced_radiative as rr
+
+    monkeypatch.setattr(rr, "MAX_ITER", 1)  # no projected step converges in one iteration
+    _, problem = problem_of(body(method="reduced", duration_s=120.0))
+    st = solver.Stepper(problem)
+    evs = list(st)
+    assert st.method == "full" and st.newton["relinearisations"] >= 0
+    assert any("did not converge" in w and "full system was stepped" in w for w in problem.warnings)
+    out = [e for e in evs if e.is_output]
+    times, temps = np.array([e.time_s for e in out]), np.array([e.part_max[0] for e in out])
+    assert np.abs(temps - lumped_reference(times)).max() < 0.02
+
+
 def test_full_is_kept_when_asked_and_the_reduced_run_when_it_pays():
     _, problem = problem_of(body(method="full", duration_s=60.0))
     assert solver.Stepper(problem).method == "full"

@@ -212,40 +212,44 @@ def run_reduced_radiative(stepper) -> Iterator:
                                   ProjectedRadiation(p, basis.V[:, :r]), grid, names, stepper.cancel, scale,
                                   counts)
 
-        for block in range(1, MAX_BLOCKS + 1):
-            added = basis.grow()
-            if added:
-                proj.update()
-            exhausted = added == 0 and not basis.full
-            if not exhausted and block < MIN_BLOCKS:
-                continue
-            r, r_small = basis.size, basis.size - basis.block_sizes[-1]
-            q, radiated = solve(r)
-            if nodes is None or exhausted:
-                nodes = hottest_nodes(p, basis.V, q, coarse)
-            if exhausted:
-                info.error_estimate_k, info.converged = 0.0, True
-            else:
-                q_small = prev_q if prev_q is not None and prev_q.shape[0] == r_small else solve(r_small)[0]
-                info.error_estimate_k = estimate_error(basis.V, q, q_small, nodes)
-                info.history.append((r, info.error_estimate_k))
-                if info.error_estimate_k <= tol:
+        failure = None
+        try:
+            for block in range(1, MAX_BLOCKS + 1):
+                added = basis.grow()
+                if added:
+                    proj.update()
+                exhausted = added == 0 and not basis.full
+                if not exhausted and block < MIN_BLOCKS:
+                    continue
+                r, r_small = basis.size, basis.size - basis.block_sizes[-1]
+                q, radiated = solve(r)
+                if nodes is None or exhausted:
                     nodes = hottest_nodes(p, basis.V, q, coarse)
-                    info.error_estimate_k = estimate_error(basis.V, q, q_small, nodes, coarse)
-                    info.converged = info.error_estimate_k <= tol
-            result = (r, q, radiated, nodes)
-            prev_q = q
-            if info.converged or basis.full:
-                break
-        stepper.solves = basis.solves
-        if info.converged:  # the time-step error: the same projected system with every step halved
-            r, q, _, nodes = result
-            half = StepGrid.halved(stepper)
-            q_half, _ = step_projected(proj._kr[:r, :r], proj._br[:r], proj._q0[:r],
-                                       ProjectedRadiation(p, basis.V[:, :r]), half, names, stepper.cancel, scale)
-            v = basis.V[:, :r]
-            info.time_error_k = [float(e) for e in time_error_bound(_peaks_on(p, v, q, nodes),
-                                                                    _peaks_on(p, v, q_half, nodes), run.scheme)]
+                if exhausted:
+                    info.error_estimate_k, info.converged = 0.0, True
+                else:
+                    q_small = prev_q if prev_q is not None and prev_q.shape[0] == r_small else solve(r_small)[0]
+                    info.error_estimate_k = estimate_error(basis.V, q, q_small, nodes)
+                    info.history.append((r, info.error_estimate_k))
+                    if info.error_estimate_k <= tol:
+                        nodes = hottest_nodes(p, basis.V, q, coarse)
+                        info.error_estimate_k = estimate_error(basis.V, q, q_small, nodes, coarse)
+                        info.converged = info.error_estimate_k <= tol
+                result = (r, q, radiated, nodes)
+                prev_q = q
+                if info.converged or basis.full:
+                    break
+            stepper.solves = basis.solves
+            if info.converged:  # the time-step error: the same projected system with half of run.step_s
+                r, q, _, nodes = result
+                half = StepGrid.halved(stepper)
+                q_half, _ = step_projected(proj._kr[:r, :r], proj._br[:r], proj._q0[:r],
+                                           ProjectedRadiation(p, basis.V[:, :r]), half, names, stepper.cancel, scale)
+                v = basis.V[:, :r]
+                info.time_error_k = [float(e) for e in time_error_bound(_peaks_on(p, v, q, nodes),
+                                                                        _peaks_on(p, v, q_half, nodes), run.scheme)]
+        except SolveError as e:  # Newton on the projected system failed: the full system cuts its steps
+            failure, info.converged = str(e), False
         info.basis_s = _time.perf_counter() - t_start
     except BaseException:
         basis.close()
@@ -255,8 +259,8 @@ def run_reduced_radiative(stepper) -> Iterator:
     basis.close()
     info.basis_size, info.blocks = basis.size, len(basis.block_sizes) - 1
     if not info.converged:
-        p.warnings.append(f"the reduced basis did not reach {tol:g} K ({info.describe()}); the full system was "
-                          "stepped instead")
+        why = failure or f"the reduced basis did not reach {tol:g} K ({info.describe()})"
+        p.warnings.append(f"{why}; the full system was stepped instead")
         stepper.fall_back_to_full()
         yield from stepper._run_full()
         return
