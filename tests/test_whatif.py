@@ -119,3 +119,42 @@ def test_whatif_refused_for_a_settled_cycle(tmp_path, capsys):
     assert whatif_to_folder(path, tmp_path / "o", ["chip=1.2"], 0.0, quiet=True) == 2
     assert "run.periodic" in capsys.readouterr().err
     assert not (tmp_path / "o").exists()
+
+
+def _run(d, tol="model"):
+    s = RunSession(solver.parse_model(d), tolerance_k=tol)
+    for _ in s.events():
+        pass
+    return s, {r.part: r for r in s.finish()}
+
+
+def test_whatif_band_comes_from_the_runs_meshes():
+    """A what-if in the app is bounded on the same meshes as the run (solver.answers.whatifband).
+    Checks: (1) with the run's loads it reproduces the run's peaks and band; (2) linearity, exact
+    for one heat load from a uniform start at the ambient (superposition, common practice, no
+    source): the rise doubles with the load, and so does the grid-convergence bound (Roache's GCI
+    is homogeneous of degree one in the level differences); (3) a fresh run of the changed model,
+    with its own ladder, lands within the what-if's band."""
+    from solver.answers.whatifband import evaluate_with_band, prepare_levels
+
+    d = mk.chip_on_plate(duration_s=120.0, step_s=0.5, scheme="crank-nicolson", output_every_s=10.0)
+    d["mesh"]["tolerance_k"] = None  # report the file's mesh; two finer meshes bound it
+    session, run_rows = _run(d)
+    levels = session.band_levels()
+    assert levels is not None and levels.reported == 0 and len(levels.lines_mm) == 3
+    wl = prepare_levels(session.model, levels, session.problem)
+    rec1, b1 = evaluate_with_band(wl, [1.0])
+    for i, p in enumerate(session.model.parts):
+        assert abs(rec1.peak[i] - run_rows[p.name].peak_c) < 0.05
+        assert abs(b1[i] - run_rows[p.name].peak_error_k) < 0.1 + 0.02 * run_rows[p.name].peak_error_k
+    assert b1[1] > 0.2  # the chip's band is not negligible on this coarse mesh: the check can tell
+    rec2, b2 = evaluate_with_band(wl, [2.0])
+    c = wl.basis_change_k
+    np.testing.assert_allclose(rec2.peak - 25.0, 2.0 * (rec1.peak - 25.0), rtol=1e-6, atol=1e-6)
+    np.testing.assert_allclose(b2 - c, 2.0 * (b1 - c), rtol=1e-6, atol=1e-6)
+    changed = copy.deepcopy(d)
+    changed["heat_loads"][0]["profile"]["value"] *= 2.0
+    changed["mesh"]["tolerance_k"] = 0.5
+    fresh, fresh_rows = _run(changed)
+    for i, p in enumerate(session.model.parts):
+        assert abs(fresh_rows[p.name].peak_c - rec2.peak[i]) <= b2[i], p.name

@@ -147,6 +147,17 @@ def mesh_error_bound(peaks: list[np.ndarray], nodes: list[int]):
     return bound, orders
 
 
+def reported_bound(peaks: list[np.ndarray], nodes: list[int], reported: int, extra_k=0.0) -> np.ndarray:
+    """Per-part bound (K) for the peaks of level ``reported`` from the peaks of every level (coarse
+    to fine): the finest level's mesh bound plus ``extra_k`` (time or basis error); for a coarser
+    reported level (``mesh.tolerance_k: null``) also its distance to the finest."""
+    fine, _ = mesh_error_bound(peaks, nodes)
+    bound = fine + extra_k
+    if reported % len(peaks) != len(peaks) - 1:
+        bound = np.abs(np.asarray(peaks[-1], dtype=float) - np.asarray(peaks[reported], dtype=float)) + bound
+    return bound
+
+
 @dataclass
 class Ladder:
     """The levels solved so far and the decision to refine again."""

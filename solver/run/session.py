@@ -21,6 +21,7 @@ folder as it was.
 from __future__ import annotations
 
 import dataclasses
+from dataclasses import dataclass
 import time
 import weakref
 from pathlib import Path
@@ -28,9 +29,10 @@ from typing import Callable, Iterator
 
 import numpy as np
 
-from solver.run.accuracy import GROWTH_PER_LEVEL, MIN_LEVELS_TO_ACCEPT, AccuracySettings, Ladder, time_error_bound
+from solver.run.accuracy import (GROWTH_PER_LEVEL, MIN_LEVELS_TO_ACCEPT, AccuracySettings, Ladder, reported_bound,
+                                 time_error_bound)
 from solver.mesh.budget import check_budget, memory_limit
-from solver.mesh.mesher import BYTES_PER_NODE_ESTIMATE, available_memory_bytes, build_mesh, estimate_nodes
+from solver.mesh.mesher import MM, BYTES_PER_NODE_ESTIMATE, available_memory_bytes, build_mesh, estimate_nodes
 from solver.mesh.meshreport import resolution_report
 from solver.fem.problem import build_problem
 from solver.linalg.linsolve import scaled_factor_bytes
@@ -46,6 +48,16 @@ KEEP_IN_MEMORY_BYTES = 5e8  # frames of an unstreamed level kept in memory up to
 DUAL_WEIGHTED = True  # refine by goal-oriented (influence-weighted) indicators
 BASIS_SHARE = 0.1  # reduced-basis tolerance as a share of mesh.tolerance_k ...
 MIN_BASIS_TOLERANCE_K = 0.005  # ... but not below this
+
+
+@dataclass
+class BandLevels:
+    """Mesh levels of a run's error bound: planes per level (mm, coarse to fine), node counts, and
+    which of them the reported peaks come from."""
+
+    lines_mm: list
+    reported: int
+    nodes: list
 
 
 def _dual_method(method: str) -> str:
@@ -103,6 +115,7 @@ class RunSession:
         self._reported_level = None
         self._finished_all = False
         self._streamed_final = False
+        self._level_lines: list = []  # planes (mm) of each level solved, coarse to fine
 
     def _stepper(self, problem, **kw) -> Stepper:
         if self._period is not None and getattr(problem, "_cycle", None) is None:
@@ -261,6 +274,7 @@ class RunSession:
             if own_time_error is not None:  # a radiating reduced run checks its own steps, on every mesh
                 self.ladder.time_error = np.asarray(own_time_error, dtype=float)
             self.ladder.add(self.problem, self.recorder.peak.copy(), self._level_wall, self.stepper.method, solver_err)
+            self._level_lines.append(tuple(np.asarray(l) / MM for l in self.problem.mesh.lines))
             if not s.refine and k >= 2:
                 break
             if s.refine:  # stop before planning a level that a budget already forbids
@@ -297,8 +311,21 @@ class RunSession:
     def _coarse_bounds(self) -> np.ndarray:
         """Bound for the first (coarsest) level: its distance to the finest plus the finest's bound."""
         lad = self.ladder
-        fine_bound = lad.total_bound(lad.levels[-1].time_error_k)
-        return np.abs(lad.peaks[-1] - lad.peaks[0]) + fine_bound
+        t = lad.time_error if lad.time_error is not None else 0.0
+        return reported_bound(lad.peaks, lad.nodes, 0, t + float(lad.levels[-1].time_error_k))
+
+    def band_levels(self) -> "BandLevels | None":
+        """The meshes the reported peaks' bound came from (the last three levels, or fewer), so an
+        answer derived from the same run (a what-if) can be bounded the same way; None when no
+        bound was estimated."""
+        if not self.estimate or len(self._level_lines) < 2 or self._reported_level is None:
+            return None
+        keep = self._level_lines[-3:]
+        first = len(self._level_lines) - len(keep)
+        if self._reported_level < first:  # mesh.tolerance_k null: the file's mesh, then two finer
+            keep, first = self._level_lines[:3], 0
+        return BandLevels(lines_mm=list(keep), reported=self._reported_level - first,
+                          nodes=list(self.ladder.nodes[first:first + len(keep)]))
 
     @property
     def complete(self) -> bool:

@@ -17,7 +17,7 @@ from PySide6.QtCore import Qt  # noqa: E402
 
 import solver  # noqa: E402
 from solver.model.modelfile import parse_model, save_model  # noqa: E402
-from solver.results.recorder import PEAK_COLUMNS  # noqa: E402
+from solver.results.recorder import PEAK_COLUMNS, PeakRow  # noqa: E402
 from solver.run.session import RunSession  # noqa: E402
 from solver.answers.whatif import whatif_to_folder  # noqa: E402
 from modelkit import chip_on_plate  # noqa: E402
@@ -107,19 +107,36 @@ def test_whatif_panel_answers_like_the_cli_and_a_fresh_solve(qtbot, tmp_path, op
     assert set(shown) == set(cli)
     peak_col = res.table.column("peak")
     margin_col = res.table.column("margin")
+    banded = 0
     for part, r in cli.items():
         assert float(shown[part][COL["peak_c"]]) == pytest.approx(float(r["peak_c"]), abs=2e-3)
-        assert shown[part][COL["status"]] == r["status"]
-        assert text[part][peak_col] == f"{float(r['peak_c']):.1f}"  # no ± band: none is estimated
+        err = shown[part][COL["peak_error_k"]]
+        if part in {p["name"] for p in d["parts"]}:  # parts carry a band from the run's three meshes
+            assert err and float(err) > 0, part
+            banded += 1
+            # the verdict follows the band (the command line's, on one mesh, has none)
+            assert shown[part][COL["status"]] == PeakRow(part, float(r["rated_c"]) if r["rated_c"] else None,
+                                                         float(r["peak_c"]), 0.0, None, None, (), 0.0,
+                                                         float(err)).status
+            assert text[part][peak_col] == f"{float(r['peak_c']):.1f} ± {float(err):.1f}"
         if r["margin_k"]:
             assert text[part][margin_col] == f"{float(r['margin_k']):+.1f}"
+    assert banded == len(d["parts"])
     # and against a fresh full solve of the changed model
     fresh = RunSession(solver.parse_model(changed(d, 1.3, 5.0)), tolerance_k=False)
     for _ in fresh.events():
         pass
     for r in fresh.finish():
         assert abs(float(shown[r.part][COL["peak_c"]]) - r.peak_c) < 0.05, r.part
-        assert shown[r.part][COL["status"]] == r.status
+    # a fresh run of the changed model with its own mesh ladder lands inside the what-if's band
+    converged = changed(d, 1.3, 5.0)
+    converged["mesh"]["tolerance_k"] = 1.0
+    ladder = RunSession(solver.parse_model(converged))
+    for _ in ladder.events():
+        pass
+    for r in ladder.finish():
+        if shown[r.part][COL["peak_error_k"]]:
+            assert abs(float(shown[r.part][COL["peak_c"]]) - r.peak_c) <= float(shown[r.part][COL["peak_error_k"]]), r.part
     # the change is visible: the chip is hotter than in the run
     run_chip = next(r for r in run_rows if r[0] == "chip")
     assert float(shown["chip"][COL["peak_c"]]) > float(run_chip[COL["peak_c"]]) + 5.0
@@ -127,6 +144,7 @@ def test_whatif_panel_answers_like_the_cli_and_a_fresh_solve(qtbot, tmp_path, op
     # clearly marked as a what-if: table banner, chart heading, the run's curves beneath, the 3D caption
     assert res.table.banner.isVisible() and "WHAT-IF ANSWER" in res.table.banner.text()
     assert "chip ×1.30" in res.table.banner.text() and "ambient +5.0 K" in res.table.banner.text()
+    assert "Error bands from the same 3 meshes" in res.table.banner.text()
     assert not res.table.export_button.isEnabled()
     assert "WHAT-IF" in res.chart.plotItem.titleLabel.text
     assert set(res.chart.reference_curves) == set(res.chart.curves) and res.chart.curves

@@ -403,7 +403,7 @@ class ResultsController(LookInside, ResultFiles, ResultDisplay, QObject):
         self.status.detail.setToolTip(str(s.folder))
         self.show_index(self.timeline.index)
         if self._session is not None:
-            self.whatif.run_finished(self._session.problem)
+            self.whatif.run_finished(self._session.problem, self._session.band_levels())
         self._session = None
 
     def _on_failed(self, headline: str, details: str, issues) -> None:

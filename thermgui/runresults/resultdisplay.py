@@ -115,8 +115,7 @@ class ResultDisplay:
         answer = self.whatif.chart_data()
         if answer is not None:  # the what-if's curves, the run's beneath them
             extra = dict(reference=(times, pmax), heading=self.whatif.heading())
-            times, pmax, verdicts = answer
-            errors = {}
+            times, pmax, verdicts, errors = answer
         self.chart.show_parts(names, times, pmax, all_names, {n: s.rating(n) for n in names},
                               span_s=s.duration_s, verdicts=verdicts, errors=errors, **extra)
         if s.n_frames:

@@ -13,7 +13,8 @@ from PySide6.QtWidgets import QFrame, QScrollArea
 
 from solver.errors import ModelError
 from solver.results.recorder import PEAK_COLUMNS
-from solver.answers.whatif import check_whatif, evaluate, prepare_unit_responses
+from solver.answers.whatif import check_whatif
+from solver.answers.whatifband import evaluate_with_band, prepare_levels, rows_with_band
 
 from .jobs import Job
 from .whatifpanel import WhatIfPanel
@@ -54,7 +55,8 @@ class WhatIfControl(QObject):
                 menu.addAction(self.action)
             self.dock.visibilityChanged.connect(self._on_visible)
         self.problem = None
-        self.units = None
+        self.levels = None  # the run's band meshes (solver.run.session.BandLevels)
+        self.units = None  # solver.answers.whatifband.WhatIfLevels once prepared
         self.answer = None  # (scales, offset_k, rows, times, part_max) shown
         self.active = False  # the table and chart show a what-if answer
         self._prep: Job | None = None
@@ -78,10 +80,13 @@ class WhatIfControl(QObject):
     def run_ended_unfinished(self) -> None:
         self._drop("The last run did not finish; the what-if is offered after a finished run.")
 
-    def run_finished(self, problem) -> None:
-        """The run has finished on ``problem`` (the reported mesh level); offer the what-if on it."""
+    def run_finished(self, problem, levels=None) -> None:
+        """The run has finished on ``problem`` (the reported mesh level); offer the what-if on it.
+        ``levels`` (:meth:`solver.run.session.RunSession.band_levels`): the meshes the run's band came
+        from, on which the what-if is bounded too (None: no band)."""
         self._drop("")
         self.problem = problem
+        self.levels = levels
         self.panel.set_loads(problem.model.heat_loads)
         self.panel.set_ready(False)
         try:
@@ -101,7 +106,7 @@ class WhatIfControl(QObject):
         self.stop()
         self._gen += 1
         self._pending = None
-        self.problem = self.units = None
+        self.problem = self.units = self.levels = None
         if self.active:
             self.show_run()
         self.panel.set_values([1.0] * len(self.panel.factors), 0.0)
@@ -139,12 +144,13 @@ class WhatIfControl(QObject):
             check_whatif(self.problem.model)
         except ModelError:
             return False
-        problem = self.problem
+        problem, levels = self.problem, self.levels
+        meshes = (f"on the run's {len(levels.lines_mm)} meshes, up to {max(levels.nodes):,} nodes, for the error band"
+                  if levels is not None else f"{problem.n_nodes:,} nodes")
         self.panel.show_message(None)
-        self.panel.show_state(f"Preparing the run's unit responses ({problem.n_nodes:,} nodes, once per run)…",
-                              preparing=True)
-        self._prep = Job(lambda progress, cancelled: prepare_unit_responses(problem, progress=progress,
-                                                                             cancel=cancelled), self)
+        self.panel.show_state(f"Preparing the run's unit responses ({meshes}; once per run)…", preparing=True)
+        self._prep = Job(lambda progress, cancelled: prepare_levels(problem.model, levels, problem, progress=progress,
+                                                                    cancel=cancelled), self)
         self._prep.worker.progress.connect(self._on_prep_progress)
         self._prep.worker.succeeded.connect(self._on_prepared)
         self._prep.worker.failed.connect(self._on_prep_failed)
@@ -172,7 +178,8 @@ class WhatIfControl(QObject):
             return
         self.units = units
         self.panel.set_ready(True)
-        self.panel.show_state(f"Ready ({units.v.shape[1]} basis vectors, {len(units.times):,} samples): "
+        meshes = f" on {len(units.problems)} meshes" if len(units.problems) > 1 else ""
+        self.panel.show_state(f"Ready ({units.basis_size} basis vectors, {units.samples:,} samples{meshes}): "
                               "change a factor or the offset.")
         if not self.panel.is_default():
             self.request(*self.panel.values())
@@ -201,12 +208,12 @@ class WhatIfControl(QObject):
             return
         scales, offset_k, gen = self._pending
         self._pending = None
-        problem, units = self.problem, self.units
+        units = self.units
 
         def work(progress, cancelled):
-            rec = evaluate(problem, units, scales, offset_k)
+            rec, bound = evaluate_with_band(units, scales, offset_k)
             times, pmax, _ = rec.history_arrays()
-            return gen, scales, offset_k, [r.as_csv_row() for r in rec.peak_rows()], times, pmax
+            return gen, scales, offset_k, [r.as_csv_row() for r in rows_with_band(rec, bound)], times, pmax
 
         self._eval = Job(work, self, short=True)
         self._eval.worker.succeeded.connect(self._on_answer)
@@ -224,9 +231,13 @@ class WhatIfControl(QObject):
         was_active, self.active = self.active, True
         res = self.results
         names = [hl.part for hl in self.problem.model.heat_loads]
-        band = max((res.store.error_k(n) for n in res.store.part_names), default=0.0) if res.store else 0.0
-        note = (f" No error band is estimated for a what-if (the run's peaks carried up to ± {band:.1f} K), "
-                "so its verdicts are over or ok only." if band > 0 else "")
+        if self.units is not None and len(self.units.problems) > 1:
+            note = (f" Error bands from the same {len(self.units.problems)} meshes as the run's; verdicts follow "
+                    "them (over, at risk, ok).")
+        else:
+            band = max((res.store.error_k(n) for n in res.store.part_names), default=0.0) if res.store else 0.0
+            note = (f" No error band is estimated for this what-if (the run's peaks carried up to ± {band:.1f} K), "
+                    "so its verdicts are over or ok only." if band > 0 else "")
         res.table.set_banner(f"<b>WHAT-IF ANSWER, not the run:</b> {describe_change(names, scales, offset_k)}."
                              + note)
         res.table.set_rows(rows, res.store.duration_s)
@@ -258,12 +269,12 @@ class WhatIfControl(QObject):
 
     # ------------------------------------------------------------ for the results controller
     def chart_data(self):
-        """(times, part maxima, verdicts) of the shown what-if answer, or None."""
+        """(times, part maxima, verdicts, error bands K) of the shown what-if answer, or None."""
         if not self.active or self.answer is None:
             return None
         _, _, rows, times, pmax = self.answer
-        k = PEAK_COLUMNS.index("status")
-        return times, pmax, {r[0]: r[k] for r in rows}
+        k, e = PEAK_COLUMNS.index("status"), PEAK_COLUMNS.index("peak_error_k")
+        return times, pmax, {r[0]: r[k] for r in rows}, {r[0]: float(r[e]) for r in rows if r[e] not in ("", None)}
 
     def caption_note(self) -> str:
         return "\nview: the run itself; table and chart: what-if" if self.active else ""

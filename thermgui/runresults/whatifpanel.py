@@ -70,7 +70,7 @@ class WhatIfPanel(QWidget):
         self.stop_button = QPushButton("Stop")
         self.stop_button.clicked.connect(self.stopRequested)
         self.stop_button.hide()
-        self.note = QLabel("Superposed from the run's unit responses on its mesh; the 3D view shows the run.")
+        self.note = QLabel("Superposed from the run's unit responses, on the meshes its error band came from; the 3D view shows the run.")
         self.note.setWordWrap(True)
         self.note.setStyleSheet(NOTE_STYLE)
         buttons = QHBoxLayout()

@@ -1,0 +1,91 @@
+"""A what-if with an error band: the same superposition on each mesh the run's bound came from.
+
+A run with ``mesh.tolerance_k`` bounds its peaks from a ladder of meshes
+(:mod:`solver.run.accuracy`). A what-if (:mod:`solver.answers.whatif`) changes the loads, so the run's
+band does not carry over. Here the unit responses are built on the same meshes (the run's last
+three levels, or with ``mesh.tolerance_k: null`` the file's mesh and the two finer ones), every
+what-if is evaluated on each, and the what-if's own peaks get the same bound as the run's
+(:func:`solver.run.accuracy.reported_bound`: grid convergence index over the levels, plus the
+distance to the finest when the file's mesh is reported), plus the unit responses' largest basis
+change. Superposition is exact in time, so no time-step error is added. With the loads as in the
+run the band is the run's own, up to the basis errors of the two computations.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from solver.answers.whatif import evaluate, prepare_unit_responses
+from solver.errors import Cancelled
+from solver.run.accuracy import reported_bound
+
+
+@dataclass
+class WhatIfLevels:
+    """Unit responses on each mesh level (coarse to fine) and which level is reported."""
+
+    problems: list
+    units: list
+    nodes: list
+    reported: int
+
+    @property
+    def problem(self):
+        return self.problems[self.reported]
+
+    @property
+    def basis_change_k(self) -> float:
+        return float(max(u.change_k for u in self.units))
+
+    @property
+    def basis_size(self) -> int:
+        return int(self.units[self.reported].v.shape[1])
+
+    @property
+    def samples(self) -> int:
+        return int(len(self.units[self.reported].times))
+
+
+def prepare_levels(model, levels, reported_problem, progress=None, cancel=None,
+                   linear_solver: str = "auto") -> WhatIfLevels:
+    """Unit responses on every level of ``levels`` (:class:`solver.run.session.BandLevels`; None: the
+    reported mesh only, and then no band); the reported level reuses ``reported_problem`` (the run's
+    own), the others are meshed again from their planes. ``progress(text)`` is told which mesh is
+    being prepared."""
+    from solver.fem.problem import build_problem
+    from solver.mesh.mesher import build_mesh
+    from solver.run.session import BandLevels
+
+    if levels is None:
+        levels = BandLevels(lines_mm=[None], reported=0, nodes=[reported_problem.n_nodes])
+    problems, units = [], []
+    n = len(levels.lines_mm)
+    for i, lines in enumerate(levels.lines_mm):
+        if cancel is not None and cancel():
+            raise Cancelled("cancelled while preparing the what-if")
+        problem = reported_problem if i == levels.reported else build_problem(model, build_mesh(model, lines_mm=lines))
+        tell = None
+        if progress is not None:
+            def tell(text, i=i, problem=problem):
+                progress(text if n == 1 else f"mesh {i + 1} of {n} ({problem.n_nodes:,} nodes): {text}")
+        units.append(prepare_unit_responses(problem, linear_solver, progress=tell, cancel=cancel))
+        problems.append(problem)
+    return WhatIfLevels(problems, units, [p.n_nodes for p in problems], levels.reported)
+
+
+def evaluate_with_band(levels: WhatIfLevels, scales, ambient_offset: float = 0.0):
+    """(recorder of the reported level, per-part bound K): the what-if on every level and its bound
+    (NaN with a single level: nothing to compare with)."""
+    recs = [evaluate(p, u, scales, ambient_offset) for p, u in zip(levels.problems, levels.units)]
+    peaks = [np.asarray(r.peak, dtype=float) for r in recs]
+    bound = reported_bound(peaks, levels.nodes, levels.reported, levels.basis_change_k)
+    return recs[levels.reported], bound
+
+
+def rows_with_band(rec, bound):
+    """Peak rows of the reported level with each part's bound (statuses follow the band)."""
+    rows = rec.peak_rows()
+    for r, b in zip(rows, bound):
+        r.peak_error_k = float(b) if np.isfinite(b) else None
+    return rows
