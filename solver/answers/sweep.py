@@ -235,7 +235,7 @@ def run_group(model_dict: dict, structural, combos, linear_solver: str = "auto")
         _set(d, _split(field), value)
     model = parse_model(d)
     problem = build_problem(model)
-    method = choose_method(problem.n_nodes, linear_solver).method
+    method = choose_method(problem.n_free, linear_solver).method
     ur = compute_unit_responses(problem, "pardiso" if method == "pardiso-single" else method)
     out = []
     for combo in combos:

@@ -45,7 +45,8 @@ def diffusion_times(problem) -> tuple[float, float]:
 
 def _solver_for(problem, shift: float, method: str):
     upper = problem.pattern.upper() if problem.pattern is not None and problem._shares_pattern() else None
-    return make_solver(problem.step_matrix(1.0 / shift, 1.0), method, upper=upper, refine=False)
+    return make_solver(problem.step_matrix(1.0 / shift, 1.0), method, upper=upper, refine=False,
+                       constraint=problem.constraint)
 
 
 class _Columns(KrylovBasis):
@@ -78,7 +79,7 @@ class MultiShiftBasis:
         cap = int(min(MAX_COLUMNS, MAX_BASIS_BYTES // (8 * n)))
         self.max_columns = int(max_columns or cap)
         self.shifts = [float(s) for s in shifts]
-        method = choose_method(n, linear_solver, matrices=len(self.shifts)).method
+        method = choose_method(problem.n_free, linear_solver, matrices=len(self.shifts)).method
         if method == "pardiso-single":
             method = "pardiso"
         self.method = method

@@ -131,7 +131,7 @@ def prepare_unit_responses(problem, linear_solver: str = "auto", progress=None, 
     from solver.linalg.linsolve import choose_method
 
     check_whatif(problem.model)
-    method = choose_method(problem.n_nodes, linear_solver).method
+    method = choose_method(problem.n_free, linear_solver).method
     return compute_unit_responses(problem, "pardiso" if method == "pardiso-single" else method,
                                   progress=progress, cancel=cancel)
 

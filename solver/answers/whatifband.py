@@ -58,20 +58,22 @@ def prepare_levels(model, levels, reported_problem, progress=None, cancel=None,
     from solver.run.session import BandLevels
 
     if levels is None:
-        levels = BandLevels(lines_mm=[None], reported=0, nodes=[reported_problem.n_nodes])
+        levels = BandLevels(lines_mm=[None], reported=0, nodes=[reported_problem.n_free])
     problems, units = [], []
     n = len(levels.lines_mm)
+    regions = levels.regions or [None] * n
     for i, lines in enumerate(levels.lines_mm):
         if cancel is not None and cancel():
             raise Cancelled("cancelled while preparing the what-if")
-        problem = reported_problem if i == levels.reported else build_problem(model, build_mesh(model, lines_mm=lines))
+        problem = (reported_problem if i == levels.reported else
+                   build_problem(model, build_mesh(model, lines_mm=lines, regions=regions[i])))
         tell = None
         if progress is not None:
             def tell(text, i=i, problem=problem):
                 progress(text if n == 1 else f"mesh {i + 1} of {n} ({problem.n_nodes:,} nodes): {text}")
         units.append(prepare_unit_responses(problem, linear_solver, progress=tell, cancel=cancel))
         problems.append(problem)
-    return WhatIfLevels(problems, units, [p.n_nodes for p in problems], levels.reported)
+    return WhatIfLevels(problems, units, [p.n_free for p in problems], levels.reported)
 
 
 def evaluate_with_band(levels: WhatIfLevels, scales, ambient_offset: float = 0.0):

@@ -18,6 +18,7 @@ from solver.mesh.contacts import contact_resistance_grid, effective_conductivity
 from solver.errors import ModelError
 from solver.mesh.mesher import MM, SIDE_AXIS, Mesh, build_mesh, convection_face_mask, isolated_parts
 from solver.fem.probes import probe_matrix
+from solver.mesh.localplanes import RegionError, prolongation
 from solver.fem.radiation import build_radiation
 from solver.model.profiles import Constant, ProfileFunction, make_profile, scaled
 
@@ -70,6 +71,12 @@ class Problem:
     surface_loads: list = field(default_factory=list)  # (s (N,) summing to 1, ProfileFunction of absorbed W)
     air: object = None  # solver.fem.airnodes.AirNodes: unknowns after the mesh nodes (None: no air volume)
     radiation: object = None  # solver.fem.radiation.Radiation (None: linear model)
+    constraint: object = None  # (P, free) of hanging nodes (solver.mesh.localplanes), None: every node free
+
+    @property
+    def n_free(self) -> int:
+        """Unknowns the linear solvers factor: ``n_nodes`` less the hanging nodes."""
+        return self.n_nodes if self.constraint is None else len(self.constraint[1])
 
     @property
     def n_mesh(self) -> int:
@@ -365,5 +372,12 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
         return make_profile(c.ambient_c) if c.ambient_c is not None else Constant(float(model.ambient_c))
 
     radiation = build_radiation(model, mesh, conv_masks, n_all, make_profile, ambient_of)
+    constraint = None
+    if getattr(mesh, "regions", None) is not None:
+        try:
+            constraint = prolongation(mesh, mesh.regions, n_all - n)
+        except RegionError as e:  # every node stays free: the fine grid itself, correct but larger
+            warnings.append(f"local refinement planes made global ({e})")
     return Problem(model, mesh, kc, conv, capacity, lumped, shares, heat_profiles, conv_loads, pmat,
-                   initial, PartNodes(index, offsets, counts), part_vol, warnings, pattern, surface, air, radiation)
+                   initial, PartNodes(index, offsets, counts), part_vol, warnings, pattern, surface, air, radiation,
+                   constraint)

@@ -271,6 +271,8 @@ FILL_SAFETY = 1.25  # margin on a factor size scaled from a smaller mesh of the 
 def measured_double_factor_bytes(solver) -> int | None:
     """The double-precision factor size (bytes) of a PARDISO factorization already made, or None
     for other solvers. A single-precision factor reports half the bytes, so it is doubled."""
+    if isinstance(solver, ConstrainedSolver):
+        solver = solver.inner
     if not isinstance(solver, PardisoCholesky) or solver.ps is None:
         return None
     return solver.factor_bytes() * (2 if solver.single else 1)
@@ -456,8 +458,51 @@ class MultigridCGSolver:
         self.ml = None
 
 
-def make_solver(a: sp.spmatrix, method: str, upper=None, refine: bool = True):
-    """A solver object for matrix ``a`` by method name (see :func:`choose_method`)."""
+class ConstrainedSolver:
+    """Solves ``a x = b`` within the span of a prolongation P (hanging-node constraints, see
+    :mod:`solver.mesh.localplanes`): x = P (PᵀaP)⁻¹ Pᵀb, the Galerkin solution on that subspace.
+    Vectors in and out have the mesh's length; only PᵀaP (free unknowns) is factored."""
+
+    def __init__(self, a: sp.spmatrix | None, method: str, constraint, refine: bool = True, inner=None):
+        self.p, self.free = constraint
+        self.pt = self.p.T.tocsr()
+        if inner is None:
+            inner = make_solver((self.pt @ sp.csr_matrix(a) @ self.p).tocsr(), method, refine=refine)
+        self.inner = inner
+        self.iterative = self.inner.iterative
+        self.name = self.inner.name + f" on {len(self.free):,} free unknowns"
+
+    @classmethod
+    def around(cls, inner, constraint) -> "ConstrainedSolver":
+        """Wrap a solver already made for PᵀAP (it is closed with this one)."""
+        return cls(None, "", constraint, inner=inner)
+
+    @property
+    def ps(self):
+        return getattr(self.inner, "ps", None)
+
+    @property
+    def single(self):
+        return getattr(self.inner, "single", False)
+
+    def factor_bytes(self) -> int:
+        return self.inner.factor_bytes()
+
+    def solve(self, b, x0=None):
+        b = np.asarray(b, dtype=np.float64)
+        xr = self.inner.solve(self.pt @ b, None if x0 is None else np.asarray(x0)[self.free])
+        return self.p @ xr
+
+    def close(self):
+        self.inner.close()
+
+
+def make_solver(a: sp.spmatrix, method: str, upper=None, refine: bool = True, constraint=None):
+    """A solver object for matrix ``a`` by method name (see :func:`choose_method`); with a
+    ``constraint`` (P, free) from :func:`solver.mesh.localplanes.prolongation`, a
+    :class:`ConstrainedSolver` on the free unknowns."""
+    if constraint is not None:
+        return ConstrainedSolver(a, method, constraint, refine=refine)
     if method == "pardiso":
         return PardisoCholesky(a, upper)
     if method == "pardiso-single":

@@ -16,6 +16,7 @@ from scipy import ndimage
 from solver.mesh.budget import check_budget
 from solver.errors import ModelError
 from solver.mesh.gridlines import axis_lines, layers_needed
+from solver.mesh.localplanes import is_global
 from solver.resources import available_memory_bytes  # noqa: F401 (re-exported)
 
 MM = 1e-3
@@ -73,6 +74,7 @@ class Mesh:
     part_names: list
     overlaps: list = field(default_factory=list)  # (later part, earlier part, volume m³)
     warnings: list = field(default_factory=list)
+    regions: tuple | None = None  # per axis (planes, 4) mm boxes where each plane is active (solver.mesh.localplanes)
 
     @property
     def n_nodes(self) -> int:
@@ -141,10 +143,11 @@ def estimate_nodes(model, lines_mm=None) -> int:
     return int(min(total, grid_total))
 
 
-def build_mesh(model, memory_limit_bytes: int | None = None, lines_mm=None) -> Mesh:
+def build_mesh(model, memory_limit_bytes: int | None = None, lines_mm=None, regions=None) -> Mesh:
     """Mesh a validated model on its planned planes, or on ``lines_mm`` (three arrays of plane
-    positions in mm that include every part face, e.g. from :mod:`solver.mesh.refinement`).
-    Raises ModelError for a mesh that would not fit in memory."""
+    positions in mm that include every part face, e.g. from :mod:`solver.mesh.refinement`), with
+    optional ``regions`` where each plane is active (:mod:`solver.mesh.localplanes`; None: all
+    planes everywhere). Raises ModelError for a mesh that would not fit in memory."""
     if memory_limit_bytes is None and lines_mm is None:
         check_budget(model)  # counted from the model before any plane is placed (solver/mesh/budget.py)
     lines_mm = plan_lines(model) if lines_mm is None else tuple(np.asarray(l, dtype=float) for l in lines_mm)
@@ -200,7 +203,8 @@ def build_mesh(model, memory_limit_bytes: int | None = None, lines_mm=None) -> M
     for later, earlier, vol in overlaps:
         warnings.append(f"part {names[later]!r} overlaps {names[earlier]!r} by {vol / MM**3:.3g} mm³ "
                         f"(the later part, {names[later]!r}, takes that volume)")
-    return Mesh((lx, ly, lz), cell_part, nodes, grid_node_id, tets, tet_part, boundary, names, overlaps, warnings)
+    return Mesh((lx, ly, lz), cell_part, nodes, grid_node_id, tets, tet_part, boundary, names, overlaps, warnings,
+                None if is_global(regions) else tuple(np.asarray(r, dtype=float) for r in regions))
 
 
 def _boundary_faces(cell_part, grid_node_id, lines_m) -> BoundaryFaces:

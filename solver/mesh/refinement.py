@@ -27,6 +27,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from solver.mesh.gridlines import grade
+from solver.mesh.localplanes import EVERYWHERE, global_regions, other_axes
 from solver.mesh.mesher import MM, Mesh
 
 BULK_FRACTION = 1.0  # Dörfler's θ: share of the total indicator the marked intervals must cover
@@ -84,14 +85,17 @@ def _face_jumps(tg: np.ndarray, widths, k_cell: np.ndarray, ax: int) -> np.ndarr
     return q[tuple(hi)] - q[tuple(lo)]
 
 
-def axis_indicators(mesh: Mesh, k_cell: np.ndarray, field: np.ndarray, dual: np.ndarray | None = None):
+def axis_indicators(mesh: Mesh, k_cell: np.ndarray, field: np.ndarray, dual: np.ndarray | None = None,
+                    maps: bool = False):
     """Per axis, the indicator of each interval between planes.
 
     Without ``dual``: Σ h_a [q_a]² A / k_a over the faces on the interval's planes (W·K), the
     energy-norm indicator. With ``dual`` (the influence field of a peak, see :func:`influence_fields`):
     Σ h_a |[q_a(T)]| |[q_a(z)]| A / k_a, the product form of goal-oriented estimates
     (Becker and Rannacher 2001; Prudhomme and Oden 1999), which favours faces where an error
-    would move that peak.
+    would move that peak. With ``maps`` each axis gives instead the indicator of every interval
+    spread over the cells of its slab, (n_intervals, n_u, n_v) with u, v the other two axes in
+    increasing order (where in its slab an interval's indicator comes from).
     """
     tg = grid_field(mesh, field)
     tz = grid_field(mesh, dual) if dual is not None else None
@@ -117,6 +121,13 @@ def axis_indicators(mesh: Mesh, k_cell: np.ndarray, field: np.ndarray, dual: np.
         h_face = (0.5 * (w[:-1] + w[1:])).reshape(shape_a)
         prod = np.abs(jump * jump_z)
         eta2 = np.where(np.isfinite(prod), h_face * prod * area / k_face, 0.0)
+        if maps:
+            faces = np.moveaxis(eta2, ax, 0)  # (n_ax - 1, n_u, n_v)
+            ind = np.zeros((len(w),) + faces.shape[1:])
+            ind[:-1] += 0.5 * faces
+            ind[1:] += 0.5 * faces
+            out.append(ind)
+            continue
         per_face_plane = eta2.sum(axis=tuple(a for a in range(3) if a != ax))  # (n_ax - 1,)
         ind = np.zeros(len(w))
         ind[:-1] += 0.5 * per_face_plane
@@ -141,7 +152,7 @@ def influence_fields(problem, hot_nodes, tau_s: float, method: str = "direct", s
     own = solver is None
     if own:
         a = (problem.stiffness + sp.diags(problem.lumped / float(tau_s))).tocsr()
-        solver = make_solver(a, method)
+        solver = make_solver(a, method, constraint=problem.constraint)
     try:
         if getattr(solver, "iterative", False):  # Krylov solvers take one right-hand side at a time
             z = np.column_stack([solver.solve(rhs[:, j]) for j in range(rhs.shape[1])])
@@ -206,6 +217,40 @@ def _part_extent_mm(mesh: Mesh, part: int, ax: int) -> float:
     return float(mesh.lines[ax][idx[-1] + 1] - mesh.lines[ax][idx[0]]) / MM
 
 
+def _plan(model, mesh: Mesh, fields, duals, hot_nodes, hot_parts, bulk, growth, maps: bool):
+    """Marked intervals per axis, the summed indicators (per interval, or spread over each slab
+    with ``maps``) and, per axis, the forced (hot-spot) intervals with the part that forced them."""
+    k_cell = cell_conductivity(model, mesh)
+    total = None
+    duals = duals if duals is not None else [None] * len(fields)
+    for f, z in zip(fields, duals):
+        for ind in [axis_indicators(mesh, k_cell, f, maps=maps)] + (
+                [axis_indicators(mesh, k_cell, f, z, maps=maps)] if z is not None else []):
+            tot = sum(float(i.sum()) for i in ind)
+            if tot > 0:
+                total = [i / tot for i in ind] if total is None else [t + i / tot for t, i in zip(total, ind)]
+    if total is None:
+        total = [np.zeros((len(l) - 1,) + ((len(mesh.lines[u]) - 1, len(mesh.lines[v]) - 1) if maps else ()))
+                 for l, (u, v) in zip(mesh.lines, (other_axes(a) for a in range(3)))]
+    per_interval = [t.sum(axis=(1, 2)) if maps else t for t in total]
+    widths_mm = [np.diff(l) / MM for l in mesh.lines]
+    masks = mark_intervals(per_interval, slab_cells(mesh), bulk, growth, widths_mm)
+    forced = [dict() for _ in range(3)]
+    for node, part in zip(hot_nodes, hot_parts if hot_parts is not None else [None] * len(hot_nodes)):
+        gi = np.argwhere(mesh.grid_node_id == int(node))
+        if not len(gi):
+            continue
+        for a in range(3):
+            i = int(gi[0, a])
+            extent = _part_extent_mm(mesh, part, a) if part is not None else np.inf
+            for j in (i - 1, i):  # the intervals below and above the node's plane
+                if (0 <= j < len(masks[a]) and widths_mm[a][j] > 2 * MIN_WIDTH_MM
+                        and widths_mm[a][j] > extent / HOT_CELLS_ACROSS):
+                    masks[a][j] = True
+                    forced[a].setdefault(j, []).append(part)
+    return masks, total, forced
+
+
 def refined_lines(model, mesh: Mesh, fields, duals=None, hot_nodes=(), hot_parts=None,
                   bulk: float = BULK_FRACTION, growth: float = MAX_GROWTH):
     """New planes (mm, per axis) refined where the indicators of ``fields`` are largest.
@@ -219,26 +264,88 @@ def refined_lines(model, mesh: Mesh, fields, duals=None, hot_nodes=(), hot_parts
     where it is, until they are narrower than 1/HOT_CELLS_ACROSS of that part's extent
     (``hot_parts`` gives the part of each hot node).
     """
-    k_cell = cell_conductivity(model, mesh)
-    total = [np.zeros(len(l) - 1) for l in mesh.lines]
-    duals = duals if duals is not None else [None] * len(fields)
-    for f, z in zip(fields, duals):
-        for ind in [axis_indicators(mesh, k_cell, f)] + ([axis_indicators(mesh, k_cell, f, z)] if z is not None else []):
-            s = sum(i.sum() for i in ind)
-            if s > 0:
-                for a in range(3):
-                    total[a] += ind[a] / s
-    widths_mm = [np.diff(l) / MM for l in mesh.lines]
-    masks = mark_intervals(total, slab_cells(mesh), bulk, growth, widths_mm)
-    for node, part in zip(hot_nodes, hot_parts if hot_parts is not None else [None] * len(hot_nodes)):
-        gi = np.argwhere(mesh.grid_node_id == int(node))
-        if not len(gi):
-            continue
-        for a in range(3):
-            i = int(gi[0, a])
-            extent = _part_extent_mm(mesh, part, a) if part is not None else np.inf
-            for j in (i - 1, i):  # the intervals below and above the node's plane
-                if (0 <= j < len(masks[a]) and widths_mm[a][j] > 2 * MIN_WIDTH_MM
-                        and widths_mm[a][j] > extent / HOT_CELLS_ACROSS):
-                    masks[a][j] = True
+    masks, _, _ = _plan(model, mesh, fields, duals, hot_nodes, hot_parts, bulk, growth, maps=False)
     return tuple(bisect_lines(mesh.lines[a] / MM, masks[a]) for a in range(3)), masks
+
+
+REGION_COVER = 0.95  # a new plane is active over the cells holding this share of its interval's indicator ...
+REGION_MARGIN_CELLS = 2  # ... widened by this many cells on every side
+
+
+def _box_of(weights: np.ndarray, lines_u_mm: np.ndarray, lines_v_mm: np.ndarray) -> np.ndarray | None:
+    """[u_lo, u_hi, v_lo, v_hi] (mm) of the cells holding REGION_COVER of ``weights`` (n_u, n_v),
+    widened by REGION_MARGIN_CELLS; None when the weights are all zero."""
+    tot = float(weights.sum())
+    if tot <= 0:
+        return None
+    flat = weights.ravel()
+    order = np.argsort(-flat, kind="stable")
+    n = int(np.searchsorted(np.cumsum(flat[order]), REGION_COVER * tot)) + 1
+    iu, iv = np.unravel_index(order[:n], weights.shape)
+    m = REGION_MARGIN_CELLS
+    u0, u1 = max(0, int(iu.min()) - m), min(weights.shape[0], int(iu.max()) + 1 + m)
+    v0, v1 = max(0, int(iv.min()) - m), min(weights.shape[1], int(iv.max()) + 1 + m)
+    return np.array([lines_u_mm[u0], lines_u_mm[u1], lines_v_mm[v0], lines_v_mm[v1]])
+
+
+def _part_box(model, part: int, ax: int) -> np.ndarray:
+    """A part's extent in the two axes other than ``ax``, widened by half its size (mm)."""
+    p = model.parts[part]
+    u, v = other_axes(ax)
+    out = []
+    for b in (u, v):
+        lo, size = p.origin_mm[b], p.size_mm[b]
+        out += [lo - 0.5 * size, lo + 1.5 * size]
+    return np.array(out)
+
+
+def _union(a: np.ndarray | None, b: np.ndarray | None) -> np.ndarray | None:
+    if a is None:
+        return b
+    if b is None:
+        return a
+    return np.array([min(a[0], b[0]), max(a[1], b[1]), min(a[2], b[2]), max(a[3], b[3])])
+
+
+def refined_planes(model, mesh: Mesh, fields, duals=None, hot_nodes=(), hot_parts=None,
+                   bulk: float = BULK_FRACTION, growth: float = MAX_GROWTH):
+    """Like :func:`refined_lines`, with local planes: (lines_mm, regions), where each new plane is
+    active only over the part of its slab where its interval's indicator comes from
+    (:mod:`solver.mesh.localplanes`), and planes of earlier levels keep their regions. Planes
+    added by grading take the regions of the new planes beside them."""
+    masks, maps, forced = _plan(model, mesh, fields, duals, hot_nodes, hot_parts, bulk, growth, maps=True)
+    old_regions = mesh.regions if mesh.regions is not None else global_regions(mesh.lines)
+    lines_out, regions_out = [], []
+    for a in range(3):
+        u, v = other_axes(a)
+        lu, lv = mesh.lines[u] / MM, mesh.lines[v] / MM
+        lines = mesh.lines[a] / MM
+        marked = np.flatnonzero(masks[a])
+        mids = 0.5 * (lines[marked] + lines[marked + 1])
+        boxes = []
+        for j in marked:
+            box = _box_of(maps[a][j], lu, lv)
+            for part in forced[a].get(int(j), []):
+                box = _union(box, _part_box(model, part, a) if part is not None else EVERYWHERE)
+            boxes.append(EVERYWHERE if box is None else box)
+        merged = np.concatenate([lines, mids])
+        merged_regions = np.vstack([np.asarray(old_regions[a], dtype=float)] + ([np.array(boxes)] if boxes else []))
+        order = np.argsort(merged, kind="stable")
+        merged, merged_regions = merged[order], merged_regions[order]
+        graded = grade(merged)
+        region = np.tile(EVERYWHERE, (len(graded), 1))
+        pos = np.searchsorted(graded, merged - 1e-9)
+        region[pos] = merged_regions
+        extra = np.setdiff1d(np.arange(len(graded)), pos)
+        if len(extra):
+            mid_pos = np.sort(np.searchsorted(graded, mids - 1e-9)) if len(mids) else np.zeros(0, dtype=int)
+            for e in extra:  # a grading plane serves the new planes beside it
+                below = mid_pos[mid_pos < e]
+                above = mid_pos[mid_pos > e]
+                box = None
+                for nb in ([below[-1]] if len(below) else []) + ([above[0]] if len(above) else []):
+                    box = _union(box, region[nb])
+                region[e] = EVERYWHERE if box is None else box
+        lines_out.append(graded)
+        regions_out.append(region)
+    return tuple(lines_out), tuple(regions_out)

@@ -77,7 +77,8 @@ class LevelRecord:
     """One solved mesh of the ladder (for run.json and the printed record)."""
 
     level: int
-    nodes: int
+    nodes: int  # unknowns (free nodes; the hanging nodes of local planes take interpolated values)
+    mesh_nodes: int  # nodes of the grid, hanging ones included
     planes: list
     cells_across_thinnest: int  # fewest cells across any goal part, in its thinnest direction
     peaks_c: dict  # part -> peak °C on this mesh
@@ -178,10 +179,11 @@ class Ladder:
     def add(self, problem, peaks: np.ndarray, wall_s: float, method: str, solver_error_k: float = 0.0) -> LevelRecord:
         """Record a solved level; returns its record with the error bounds known so far."""
         self.peaks.append(np.asarray(peaks, dtype=float))
-        self.nodes.append(int(problem.n_nodes))
+        self.nodes.append(int(problem.n_free))  # unknowns: hanging nodes of local planes are not counted
         mesh = problem.mesh
         thinnest = min((min(part_resolution(mesh, i).cells_across) for i in self.goal), default=0)
-        rec = LevelRecord(level=len(self.levels), nodes=int(problem.n_nodes), planes=[len(l) for l in mesh.lines],
+        rec = LevelRecord(level=len(self.levels), nodes=int(problem.n_free), mesh_nodes=int(problem.n_nodes),
+                          planes=[len(l) for l in mesh.lines],
                           cells_across_thinnest=int(thinnest), peaks_c={}, error_k={}, wall_s=float(wall_s),
                           method=method, time_error_k=float(solver_error_k))
         bound = self.total_bound(solver_error_k)

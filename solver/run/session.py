@@ -33,11 +33,12 @@ from solver.run.accuracy import (GROWTH_PER_LEVEL, MIN_LEVELS_TO_ACCEPT, Accurac
                                  time_error_bound)
 from solver.mesh.budget import check_budget, memory_limit
 from solver.mesh.mesher import MM, BYTES_PER_NODE_ESTIMATE, available_memory_bytes, build_mesh, estimate_nodes
+from solver.mesh.localplanes import free_count
 from solver.mesh.meshreport import resolution_report
 from solver.fem.problem import build_problem
 from solver.linalg.linsolve import scaled_factor_bytes
 from solver.transient.reduced import DEFAULT_TOLERANCE_K as REDUCED_DEFAULT_TOLERANCE_K
-from solver.mesh.refinement import influence_fields, refined_lines
+from solver.mesh.refinement import influence_fields, refined_lines, refined_planes
 from solver.results.recorder import PeakRow, RunRecorder
 from solver.io.runstore import RunFolder, model_hash
 from solver.transient.stepping import StepEvent, Stepper
@@ -48,6 +49,7 @@ KEEP_IN_MEMORY_BYTES = 5e8  # frames of an unstreamed level kept in memory up to
 DUAL_WEIGHTED = True  # refine by goal-oriented (influence-weighted) indicators
 BASIS_SHARE = 0.1  # reduced-basis tolerance as a share of mesh.tolerance_k ...
 MIN_BASIS_TOLERANCE_K = 0.005  # ... but not below this
+LOCAL_PLANES = True  # refined planes are active only where their indicator comes from (hanging nodes)
 
 
 @dataclass
@@ -57,7 +59,8 @@ class BandLevels:
 
     lines_mm: list
     reported: int
-    nodes: list
+    nodes: list  # unknowns per level (free nodes)
+    regions: list | None = None  # per level: where each plane is active (None: everywhere)
 
 
 def _dual_method(method: str) -> str:
@@ -115,7 +118,7 @@ class RunSession:
         self._reported_level = None
         self._finished_all = False
         self._streamed_final = False
-        self._level_lines: list = []  # planes (mm) of each level solved, coarse to fine
+        self._level_lines: list = []  # (planes mm, regions) of each level solved, coarse to fine
 
     def _stepper(self, problem, **kw) -> Stepper:
         if self._period is not None and getattr(problem, "_cycle", None) is None:
@@ -236,8 +239,18 @@ class RunSession:
                                      _dual_method(self.stepper.choice.method))
             duals = [z[:, j] for j in range(z.shape[1])]
         self._release_shift_solver()
+        if self._local_planes():
+            return refined_planes(self.model, self.problem.mesh, fields, duals, hot, goal or None)
         lines, _ = refined_lines(self.model, self.problem.mesh, fields, duals, hot, goal or None)
-        return lines
+        return lines, None
+
+    def _local_planes(self) -> bool:
+        """Refine with planes active only where needed (hanging nodes, :mod:`solver.mesh.localplanes`)?
+        Only for runs whose every solve goes through the constrained solvers: implicit steps (or the
+        reduced basis), a uniform start and no periodic start-up cycle."""
+        run = self.model.run
+        return (LOCAL_PLANES and self._period is None and np.ptp(self.problem.initial) == 0.0
+                and (self.stepper.method == "reduced" or run.scheme != "forward-euler"))
 
     def events(self) -> Iterator[StepEvent]:
         """Run every level's steps, recording each; yields every event (the caller may stop early)."""
@@ -274,27 +287,34 @@ class RunSession:
             if own_time_error is not None:  # a radiating reduced run checks its own steps, on every mesh
                 self.ladder.time_error = np.asarray(own_time_error, dtype=float)
             self.ladder.add(self.problem, self.recorder.peak.copy(), self._level_wall, self.stepper.method, solver_err)
-            self._level_lines.append(tuple(np.asarray(l) / MM for l in self.problem.mesh.lines))
+            mesh = self.problem.mesh
+            self._level_lines.append((tuple(np.asarray(l) / MM for l in mesh.lines), mesh.regions))
             if not s.refine and k >= 2:
                 break
             if s.refine:  # stop before planning a level that a budget already forbids
-                guess = self._predicted_next_nodes()
-                fits = guess * BYTES_PER_NODE_ESTIMATE <= 0.7 * available_memory_bytes()
+                guess = self._predicted_next_nodes()  # unknowns; the grid holds n_nodes/n_free times more nodes
+                grid_guess = guess * self.problem.n_nodes / max(1, self.problem.n_free)
+                fits = grid_guess * BYTES_PER_NODE_ESTIMATE <= 0.7 * available_memory_bytes()
                 if self.ladder.done(solver_err, time.perf_counter() - self.t_start, guess, fits):
                     break
-            lines = self._next_lines()
+            lines, regions = self._next_lines()
             est = estimate_nodes(self.model, lines)
             memory_ok = est * BYTES_PER_NODE_ESTIMATE <= 0.7 * available_memory_bytes()
+            mesh = None
+            unknowns = est
+            if regions is not None and memory_ok:  # the budget counts unknowns: hanging nodes are not solved for
+                mesh = build_mesh(self.model, lines_mm=lines, regions=regions)
+                unknowns = free_count(mesh)
             wall = time.perf_counter() - self.t_start
-            if s.refine and self.ladder.done(solver_err, wall, est, memory_ok):
+            if s.refine and self.ladder.done(solver_err, wall, unknowns, memory_ok):
                 break
             if not s.refine and (est > s.max_nodes or not memory_ok):
                 self.ladder.stop_reason = f"the estimate's next mesh (about {est:,} nodes) is over the budget"
                 break
-            measured, measured_nodes = self.stepper.factor_bytes_measured, self.problem.n_nodes
-            self.problem = build_problem(self.model, build_mesh(self.model, lines_mm=lines))
+            measured, measured_nodes = self.stepper.factor_bytes_measured, self.problem.n_free
+            self.problem = build_problem(self.model, mesh or build_mesh(self.model, lines_mm=lines, regions=regions))
             hint = (None if measured is None else
-                    scaled_factor_bytes(measured, measured_nodes, self.problem.n_nodes))
+                    scaled_factor_bytes(measured, measured_nodes, self.problem.n_free))
             self.stepper = self._stepper(self.problem, factor_bytes_hint=hint)
             self.level += 1
         if not s.refine:  # report the file's mesh: solve it again as the last level streamed
@@ -324,8 +344,8 @@ class RunSession:
         first = len(self._level_lines) - len(keep)
         if self._reported_level < first:  # mesh.tolerance_k null: the file's mesh, then two finer
             keep, first = self._level_lines[:3], 0
-        return BandLevels(lines_mm=list(keep), reported=self._reported_level - first,
-                          nodes=list(self.ladder.nodes[first:first + len(keep)]))
+        return BandLevels(lines_mm=[k[0] for k in keep], reported=self._reported_level - first,
+                          nodes=list(self.ladder.nodes[first:first + len(keep)]), regions=[k[1] for k in keep])
 
     @property
     def complete(self) -> bool:

@@ -92,7 +92,7 @@ class KrylovBasis:
         a = problem.step_matrix(1.0 / self.shift, 1.0)
         if extra_diagonal is not None:
             a = add_diagonal(problem, a, extra_diagonal)  # on the same pattern: ``upper`` still holds
-        self.solver = make_solver(a, method, upper=upper, refine=False)
+        self.solver = make_solver(a, method, upper=upper, refine=False, constraint=problem.constraint)
         n = problem.n_nodes
         start = [np.ones(n)]
         if np.ptp(problem.initial) > 0.0:

@@ -155,6 +155,6 @@ def start_cycle(problem, period: float, linear_solver: str = "auto") -> CycleInf
     from solver.linalg.linsolve import choose_method
 
     make_periodic(problem, period)
-    method = choose_method(problem.n_nodes, linear_solver).method
+    method = choose_method(problem.n_free, linear_solver).method
     return settle(problem, period, method="pardiso" if method == "pardiso-single" else method,
                   tolerance_k=problem.model.run.tolerance_k)

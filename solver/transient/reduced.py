@@ -26,7 +26,8 @@ import numpy as np
 
 from solver.transient.loads import LoadCombiner
 from solver.errors import Cancelled, SolveError
-from solver.linalg.linsolve import measured_double_factor_bytes
+from solver.fem.freeview import free_view
+from solver.linalg.linsolve import ConstrainedSolver, measured_double_factor_bytes
 from solver.transient.krylov import KrylovBasis, mass_times
 from solver.transient.modal import ModalSystem
 from solver.transient.timegrid import output_times, plan_steps
@@ -191,7 +192,10 @@ def event_indices(problem, grid: SampleGrid, cand_max: np.ndarray) -> np.ndarray
 
 def run_reduced(stepper) -> Iterator:
     """Generator of :class:`~solver.transient.stepping.StepEvent` for a reduced-basis run (see module doc)."""
-    p = stepper.problem
+    full = stepper.problem
+    # with local planes the basis is built and checked on the free unknowns (the small system);
+    # the events carry mesh fields P·(V q)
+    p = free_view(full) if full.constraint is not None else full
     run = p.model.run
     t_start = _time.perf_counter()
     tol = float(stepper.tolerance_k) if stepper.tolerance_k is not None else DEFAULT_TOLERANCE_K
@@ -200,7 +204,7 @@ def run_reduced(stepper) -> Iterator:
     info.samples = len(grid.t1)
     info.shift_per_s = 1.0 / math.sqrt(float(run.step_s) * float(run.duration_s))
     method = stepper.choice.method
-    max_columns = int(min(MAX_COLUMNS, MAX_BASIS_BYTES // (8 * p.n_nodes)))
+    max_columns = int(min(MAX_COLUMNS, MAX_BASIS_BYTES // (8 * full.n_nodes)))
     t_factor = _time.perf_counter()
     basis = KrylovBasis(p, info.shift_per_s, method=method, cancel=stepper.cancel, max_columns=max_columns)
     stepper.factorizations += 1
@@ -243,8 +247,9 @@ def run_reduced(stepper) -> Iterator:
     except BaseException:
         basis.close()
         raise
-    if stepper.keep_shift_solver:  # handed on: the caller closes it
-        stepper.shift_solver, basis.solver = (basis.solver, 1.0 / basis.shift), None
+    if stepper.keep_shift_solver:  # handed on (solving for mesh vectors): the caller closes it
+        held = basis.solver if p is full else ConstrainedSolver.around(basis.solver, full.constraint)
+        stepper.shift_solver, basis.solver = (held, 1.0 / basis.shift), None
     basis.close()
     info.basis_size, info.blocks = basis.size, len(basis.block_sizes) - 1
     if not info.converged:
@@ -254,7 +259,11 @@ def run_reduced(stepper) -> Iterator:
         yield from stepper._run_full()
         return
     r, q, qint, nodes = result
-    yield from _events(stepper, grid, basis.V[:, :r], q, qint, nodes, t_start)
+    v = basis.V[:, :r]
+    if p is not full:  # back to the mesh: every node's value, hanging ones interpolated
+        pc, free = full.constraint
+        v, nodes = np.asarray(pc @ v), free[nodes]
+    yield from _events(stepper, grid, v, q, qint, nodes, t_start)
 
 
 def _events(stepper, grid: SampleGrid, v: np.ndarray, q: np.ndarray, qint: np.ndarray, nodes: np.ndarray,

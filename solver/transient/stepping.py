@@ -179,14 +179,18 @@ class Stepper:
                 steps *= 3  # solves, not steps: radiation takes 2-3 chord iterations per step (docs/physics.md)
         explicit = self.method == "full" and not self.adaptive and self.theta == 0.0  # diagonal solves only
         factor_bytes, source = None, "measured by PARDISO's analysis"
-        if not explicit and self.factor_bytes_hint is not None and needs_analysis(p.n_nodes, requested, adaptive,
+        if not explicit and self.factor_bytes_hint is not None and needs_analysis(p.n_free, requested, adaptive,
                                                                                   matrices):
             factor_bytes = float(self.factor_bytes_hint)  # scaled from the previous mesh level's measured factor
             source = "scaled from the previous mesh's factor"
-        elif not explicit and needs_analysis(p.n_nodes, requested, adaptive, matrices):
+        elif not explicit and needs_analysis(p.n_free, requested, adaptive, matrices):
             upper = p.pattern.upper() if p.pattern is not None and p._shares_pattern() else None
-            factor_bytes = pardiso_factor_bytes(p.step_matrix(1.0, 1.0), upper)
-        return choose_method(p.n_nodes, requested, adaptive=adaptive, factor_bytes=factor_bytes, matrices=matrices,
+            a = p.step_matrix(1.0, 1.0)
+            if p.constraint is not None:  # the factored matrix is the free unknowns' PᵀAP
+                pc = p.constraint[0]
+                a, upper = (pc.T @ a @ pc).tocsr(), None
+            factor_bytes = pardiso_factor_bytes(a, upper)
+        return choose_method(p.n_free, requested, adaptive=adaptive, factor_bytes=factor_bytes, matrices=matrices,
                              steps=steps, factor_source=source)
 
     def _check_explicit_stability(self) -> None:
@@ -235,7 +239,7 @@ class Stepper:
         else:
             a = self.step_matrix(dt, theta)
             upper = p.pattern.upper() if p.pattern is not None and p._shares_pattern() else None
-            s = make_solver(a, self.choice.method, upper=upper)
+            s = make_solver(a, self.choice.method, upper=upper, constraint=p.constraint)
         return self._cache_solver(key, s)
 
     def _cache_solver(self, key, s):
@@ -365,7 +369,8 @@ class Stepper:
             a = (a + sp.diags(theta * self._lin)).tocsr()
         # the chord iterations compute the residual in double precision, so a single-precision factor
         # needs no refinement of its own here (its error is one more thing the iterations contract)
-        s = make_solver(a, self.choice.method, upper=p.pattern.upper() if shared else None, refine=False)
+        s = make_solver(a, self.choice.method, upper=p.pattern.upper() if shared else None, refine=False,
+                        constraint=p.constraint)
         return self._cache_solver(key, s)
 
     def _relinearise(self, d: np.ndarray) -> None:

@@ -1,0 +1,174 @@
+"""Local refinement planes (hanging nodes): solver.mesh.localplanes, solver.fem.freeview, the ladder.
+
+Outside references:
+- linear interpolation reproduces linear functions exactly, and a Galerkin solution minimizes the
+  energy ½xᵀKx − Fᵀx over its space, so a subspace can never reach a lower energy than the space
+  that contains it (common practice, no source);
+- the exact solution of the constrained semi-discrete system PᵀMP u' + PᵀKP u = PᵀF with constant
+  loads, by modal superposition with scipy's generalized symmetric eigensolver, against the
+  reduced-basis run on the free unknowns;
+- the analytical heated box of tests/test_accuracy.py (Carslaw & Jaeger), whose ladder now refines
+  with local planes, still has its bound bracket the true error (those tests run the default).
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.sparse as sp
+
+import solver
+from modelkit import model_dict, part
+from solver.fem.freeview import free_view
+from solver.fem.problem import build_problem
+from solver.linalg.linsolve import make_solver
+from solver.mesh.localplanes import free_count, prolongation
+from solver.mesh.mesher import build_mesh, plan_lines
+from solver.run import session as session_mod
+from solver.run.session import RunSession
+from solver.transient.stepping import Stepper
+
+MATERIALS = {"board": {"conductivity": [2.0, 2.0, 0.5], "density": 1900.0, "specific_heat": 1100.0},
+             "chip": {"conductivity": 0.8, "density": 2000.0, "specific_heat": 900.0}}
+
+
+def hot_spot_plate(duration_s=60.0, tolerance_k=None, method="reduced", board_mm=(40, 30, 2), chip_at=(8, 6),
+                   cell_mm=2.0, min_layers=2) -> dict:
+    """A board cooled underneath with a 4×4×1 mm 1.5 W part near one corner (invented)."""
+    d = model_dict([part("board", "board", (0, 0, 0), board_mm, rated_c=80.0),
+                    part("chip", "chip", (chip_at[0], chip_at[1], board_mm[2]), (4, 4, 1), rated_c=90.0)],
+                   MATERIALS, heat_loads=[{"part": "chip", "profile": {"type": "constant", "value": 1.5}}],
+                   convection=[{"name": "under", "part": "board", "side": "z-", "h": 40.0}],
+                   cell_mm=cell_mm, min_layers=min_layers, duration_s=duration_s, step_s=1.0,
+                   scheme="crank-nicolson", mass="lumped", ambient_c=25.0, initial_c=25.0, method=method)
+    d["mesh"]["tolerance_k"] = tolerance_k
+    return d
+
+
+def local_mesh(model):
+    """The planned planes with every interval bisected, the new planes active only within 2 mm of
+    the part (in the two other axes)."""
+    chip = model.parts[model.part_index("chip")]
+    lo = np.asarray(chip.origin_mm) - 2.0
+    hi = np.asarray(chip.origin_mm) + np.asarray(chip.size_mm) + 2.0
+    lines = plan_lines(model)
+    out_lines, out_regions = [], []
+    for a in range(3):
+        u, v = [b for b in range(3) if b != a]
+        mids = 0.5 * (lines[a][:-1] + lines[a][1:])
+        merged = np.sort(np.concatenate([lines[a], mids]))
+        regions = np.tile([-np.inf, np.inf, -np.inf, np.inf], (len(merged), 1))
+        regions[np.isin(merged, mids)] = [lo[u], hi[u], lo[v], hi[v]]
+        out_lines.append(merged)
+        out_regions.append(regions)
+    return build_mesh(model, lines_mm=out_lines, regions=out_regions), out_lines
+
+
+def test_prolongation_interpolates_linear_fields_and_keeps_free_nodes():
+    model = solver.parse_model(hot_spot_plate())
+    mesh, _ = local_mesh(model)
+    p, free = prolongation(mesh, mesh.regions)
+    assert p.shape == (mesh.n_nodes, len(free)) and len(free) == free_count(mesh) < mesh.n_nodes
+    assert np.allclose(np.asarray(p.sum(axis=1)).ravel(), 1.0)
+    assert p.data.min() >= 0.0
+    assert abs(p[free] - sp.eye(len(free))).max() < 1e-15
+    x = mesh.nodes
+    linear = 3.0 + 2.0 * x[:, 0] - 5.0 * x[:, 1] + 7.0 * x[:, 2]
+    assert np.abs(p @ linear[free] - linear).max() < 1e-12
+
+
+def test_constrained_solution_is_galerkin_on_its_subspace():
+    """Steady state: PᵀK(Pu) = PᵀF, and its energy is no lower than the full fine grid's."""
+    model = solver.parse_model(hot_spot_plate())
+    mesh, lines = local_mesh(model)
+    local = build_problem(model, mesh)
+    fine = build_problem(model, build_mesh(model, lines_mm=lines))
+    f_local = local.load(0.0)
+    f_fine = fine.load(0.0)
+    assert np.allclose(f_local, f_fine)  # the same grid, so the same load vector
+    x_c = make_solver(local.stiffness, "direct", constraint=local.constraint).solve(f_local)
+    x_f = make_solver(fine.stiffness, "direct").solve(f_fine)
+    pc = local.constraint[0]
+    assert np.abs(pc.T @ (local.stiffness @ x_c - f_local)).max() < 1e-9 * np.abs(f_local).max()
+
+    def energy(k, x, f):
+        return 0.5 * x @ (k @ x) - f @ x
+
+    assert energy(fine.stiffness, x_f, f_fine) <= energy(local.stiffness, x_c, f_local) + 1e-12
+    # a part's maximum over its free nodes is its maximum over every node (convex interpolation)
+    view = free_view(local)
+    u = x_c[local.constraint[1]]
+    assert np.allclose(view.part_nodes.maxima(u), local.part_nodes.maxima(x_c))
+
+
+def test_reduced_run_on_free_unknowns_matches_the_exact_constrained_solution():
+    """With constant loads the constrained system's solution is u∞ + Φ e^(−Λt) Φᵀ M (u₀ − u∞), from
+    scipy's generalized symmetric eigensolver (K Φ = M Φ Λ, Φᵀ M Φ = I)."""
+    from scipy.linalg import eigh
+
+    model = solver.parse_model(hot_spot_plate(duration_s=40.0, board_mm=(16, 12, 1.6), chip_at=(3, 3), cell_mm=2.0,
+                                              min_layers=1))
+    mesh, _ = local_mesh(model)
+    problem = build_problem(model, mesh)
+    assert problem.n_free < 2500  # dense eigenvectors below
+    st = Stepper(problem, method="reduced")
+    st.tolerance_k = 0.01
+    events = [ev for ev in st if ev.is_output]
+    view = free_view(problem)
+    m = view.capacity.toarray()
+    k = view.stiffness.toarray()
+    u_inf = np.linalg.solve(k, view.load(0.0))
+    lam, phi = eigh(k, m)
+    c0 = phi.T @ (m @ (view.initial - u_inf))
+    pc = problem.constraint[0]
+    worst = 0.0
+    for ev in events:
+        exact = u_inf + phi @ (np.exp(-lam * ev.time_s) * c0)
+        worst = max(worst, float(np.abs(ev.field - pc @ exact).max()))
+    print("free unknowns", problem.n_free, "of", problem.n_nodes, "worst", worst)
+    assert len(events) > 3 and worst < 0.02, worst
+
+
+def test_ladder_with_local_planes_solves_fewer_unknowns_for_the_same_peaks(monkeypatch):
+    d = hot_spot_plate(tolerance_k=0.5)
+    d["mesh"]["max_levels"] = 4
+    local = RunSession(solver.parse_model(d), None)
+    for _ in local.events():
+        pass
+    rows_local = local.finish()
+    monkeypatch.setattr(session_mod, "LOCAL_PLANES", False)
+    glob = RunSession(solver.parse_model(d), None)
+    for _ in glob.events():
+        pass
+    rows_glob = glob.finish()
+    assert local.problem.constraint is not None and glob.problem.constraint is None
+    assert local.problem.n_free < 0.8 * local.problem.n_nodes  # the refined planes really are local
+    rec = local.accuracy_record()
+    assert all(lv["nodes"] <= lv["mesh_nodes"] for lv in rec["levels"])
+    for a, b in zip(rows_local[:2], rows_glob[:2]):
+        # both are estimates of the same converged peak: they agree within their bands
+        assert abs(a.peak_c - b.peak_c) <= a.peak_error_k + b.peak_error_k, (a, b)
+
+
+def test_inconsistent_regions_fall_back_to_global_planes(monkeypatch):
+    import solver.mesh.localplanes as lp
+
+    model = solver.parse_model(hot_spot_plate())
+    mesh, _ = local_mesh(model)
+    monkeypatch.setattr(lp, "MAX_DEPTH", 0)
+    problem = build_problem(model, mesh)
+    assert problem.constraint is None
+    assert any("made global" in w for w in problem.warnings)
+
+
+@pytest.mark.parametrize("scheme", ["backward-euler", "crank-nicolson"])
+def test_full_stepping_with_local_planes_stays_in_the_constrained_space(scheme):
+    d = hot_spot_plate(duration_s=10.0, method="full")
+    d["run"]["scheme"] = scheme
+    model = solver.parse_model(d)
+    mesh, _ = local_mesh(model)
+    problem = build_problem(model, mesh)
+    pc, free = problem.constraint
+    last = None
+    for ev in Stepper(problem):
+        last = ev
+    assert np.abs(pc @ last.field[free] - last.field).max() < 1e-9
