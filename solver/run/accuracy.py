@@ -223,7 +223,8 @@ class Ladder:
         elif len(self.levels) >= s.max_levels:
             budget = f"mesh.max_levels ({s.max_levels}) reached"
         elif next_nodes is not None and next_nodes > s.max_nodes:
-            budget = f"the next mesh would need about {next_nodes:,} nodes, more than mesh.max_nodes ({s.max_nodes:,})"
+            budget = (f"the next mesh would need about {next_nodes:,} unknowns (nodes solved for), more than "
+                      f"mesh.max_nodes ({s.max_nodes:,})")
         elif not memory_ok:
             budget = f"the next mesh (about {next_nodes:,} nodes) would not fit in the memory available"
         elif s.time_limit_s is not None and self.levels and wall_so_far_s + GROWTH_PER_LEVEL * 1.2 * \
@@ -261,15 +262,18 @@ def format_record(record: dict, parts: list[str] | None = None) -> str:
     if not levels:
         return ""
     names = parts or record.get("goal_parts") or list(levels[0]["peaks_c"])
-    head = f"{'mesh':>4} {'nodes':>10} {'cells':>6} {'s':>7}  " + "  ".join(f"{n[:16]:>16}" for n in names)
-    out = ["mesh-independence record (peak °C ± estimated error K; cells = fewest across a rated part):", head]
+    head = (f"{'mesh':>4} {'unknowns':>10} {'grid nodes':>10} {'cells':>6} {'s':>7}  "
+            + "  ".join(f"{n[:16]:>16}" for n in names))
+    out = ["mesh-independence record (peak °C ± estimated error K; cells = fewest across a rated part; "
+           "unknowns = grid nodes less those on local planes, which are interpolated):", head]
     for lv in levels:
         cells = []
         for n in names:
             pk, er = lv["peaks_c"].get(n), lv["error_k"].get(n)
             txt = "" if pk is None else (f"{pk:.2f}" + ("" if er is None else f" ± {er:.2f}"))
             cells.append(f"{txt:>16}")
-        out.append(f"{lv['level']:>4} {lv['nodes']:>10,} {lv['cells_across_thinnest']:>6} {lv['wall_s']:>7.1f}  "
+        out.append(f"{lv['level']:>4} {lv['nodes']:>10,} {lv.get('mesh_nodes', lv['nodes']):>10,} "
+                   f"{lv['cells_across_thinnest']:>6} {lv['wall_s']:>7.1f}  "
                    + "  ".join(cells))
     tol = record.get("tolerance_k")
     if tol is None:
