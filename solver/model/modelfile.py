@@ -200,7 +200,7 @@ class MeshSettings(_Strict):
     # accuracy control (solver.run.accuracy): refine until every rated part's estimated peak error is
     # below tolerance_k (K); null = keep this mesh as given and only estimate the error
     tolerance_k: Optional[Annotated[float, Field(gt=0, le=1000)]] = 1.0
-    max_nodes: Annotated[int, Field(ge=1000, le=50_000_000)] = 2_000_000  # refinement budget: nodes
+    max_nodes: Annotated[int, Field(ge=1000, le=50_000_000)] = 2_000_000  # refinement budget: unknowns (free nodes)
     max_levels: Annotated[int, Field(ge=2, le=20)] = 8  # refinement budget: meshes solved
     time_limit_s: Optional[Positive] = 900.0  # refinement budget: wall time before the last level
     # memory budget of a run in GB (default: 70 % of the memory available when it starts); solver/mesh/budget.py
