@@ -58,7 +58,7 @@ def prepare_levels(model, levels, reported_problem, progress=None, cancel=None,
     from solver.run.session import BandLevels
 
     if levels is None:
-        levels = BandLevels(lines_mm=[None], reported=0, nodes=[reported_problem.n_free])
+        levels = BandLevels(lines_mm=[None], reported=0, nodes=[reported_problem.n_nodes])
     problems, units = [], []
     n = len(levels.lines_mm)
     regions = levels.regions or [None] * n
@@ -73,7 +73,7 @@ def prepare_levels(model, levels, reported_problem, progress=None, cancel=None,
                 progress(text if n == 1 else f"mesh {i + 1} of {n} ({problem.n_nodes:,} nodes): {text}")
         units.append(prepare_unit_responses(problem, linear_solver, progress=tell, cancel=cancel))
         problems.append(problem)
-    return WhatIfLevels(problems, units, [p.n_free for p in problems], levels.reported)
+    return WhatIfLevels(problems, units, [p.n_nodes for p in problems], levels.reported)
 
 
 def evaluate_with_band(levels: WhatIfLevels, scales, ambient_offset: float = 0.0):

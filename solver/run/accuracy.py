@@ -167,7 +167,8 @@ class Ladder:
     settings: AccuracySettings
     levels: list = field(default_factory=list)
     peaks: list = field(default_factory=list)  # per level: per-part peak arrays
-    nodes: list = field(default_factory=list)
+    nodes: list = field(default_factory=list)  # grid nodes per level (h = N^(-1/3))
+    unknowns: list = field(default_factory=list)  # free unknowns per level (the budget's count)
     time_error: np.ndarray | None = None  # per part, K (steps); reduced-basis estimates are per level
     stop_reason: str = ""
     converged: bool = False
@@ -179,7 +180,11 @@ class Ladder:
     def add(self, problem, peaks: np.ndarray, wall_s: float, method: str, solver_error_k: float = 0.0) -> LevelRecord:
         """Record a solved level; returns its record with the error bounds known so far."""
         self.peaks.append(np.asarray(peaks, dtype=float))
-        self.nodes.append(int(problem.n_free))  # unknowns: hanging nodes of local planes are not counted
+        # h for the grid convergence index comes from the grid's nodes, hanging ones included: the
+        # peaks' error is set by the cell size where the peaks are, which is the full grid's there
+        # (local planes are active around them); the unknowns (what a level costs) are budgeted apart
+        self.nodes.append(int(problem.n_nodes))
+        self.unknowns.append(int(problem.n_free))
         mesh = problem.mesh
         thinnest = min((min(part_resolution(mesh, i).cells_across) for i in self.goal), default=0)
         rec = LevelRecord(level=len(self.levels), nodes=int(problem.n_free), mesh_nodes=int(problem.n_nodes),
@@ -226,7 +231,8 @@ class Ladder:
             budget = (f"the next mesh would need about {next_nodes:,} unknowns (nodes solved for), more than "
                       f"mesh.max_nodes ({s.max_nodes:,})")
         elif not memory_ok:
-            budget = f"the next mesh (about {next_nodes:,} nodes) would not fit in the memory available"
+            budget = (f"the next mesh (about {next_nodes:,} unknowns, more grid nodes) would not fit in the "
+                      "memory available")
         elif s.time_limit_s is not None and self.levels and wall_so_far_s + GROWTH_PER_LEVEL * 1.2 * \
                 self.levels[-1].wall_s > s.time_limit_s:
             budget = (f"the next mesh would likely end after mesh.time_limit_s ({s.time_limit_s:g} s; "

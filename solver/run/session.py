@@ -59,7 +59,7 @@ class BandLevels:
 
     lines_mm: list
     reported: int
-    nodes: list  # unknowns per level (free nodes)
+    nodes: list  # grid nodes per level (as the ladder's bound counts them)
     regions: list | None = None  # per level: where each plane is active (None: everywhere)
 
 
@@ -152,7 +152,8 @@ class RunSession:
         p, s = self.problem, self.stepper
         steps = (f"{len(s.outputs):,} output times" if s.method == "reduced" else f"{s.n_steps:,} steps")
         level = f"mesh level {self.level}: " if self.estimate else ""
-        return (f"{level}{p.n_nodes:,} nodes, {p.mesh.n_tets:,} tetrahedra, {steps} ({s.scheme}); "
+        free = f" ({p.n_free:,} unknowns, the rest on local planes)" if p.constraint is not None else ""
+        return (f"{level}{p.n_nodes:,} nodes{free}, {p.mesh.n_tets:,} tetrahedra, {steps} ({s.scheme}); "
                 f"method: {s.method} ({s.method_choice.reason}); "
                 f"linear solver: {s.choice.method} ({s.choice.reason})")
 
@@ -263,8 +264,8 @@ class RunSession:
             self._release_shift_solver()
 
     def _predicted_next_nodes(self) -> int:
-        """Node count of the next level, from the growth of the last one (before planning it)."""
-        n = self.ladder.nodes
+        """Unknowns of the next level, from the growth of the last one (before planning it)."""
+        n = self.ladder.unknowns
         growth = n[-1] / n[-2] if len(n) >= 2 and n[-2] > 0 else GROWTH_PER_LEVEL
         return int(n[-1] * min(4.0, max(1.2, growth)))
 
