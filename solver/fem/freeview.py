@@ -16,28 +16,17 @@ from __future__ import annotations
 import dataclasses
 
 import numpy as np
-import scipy.sparse as sp
 
 from solver.fem.problem import PartNodes, Problem
 
 
 @dataclasses.dataclass
 class FreeProblem(Problem):
-    """A problem on the free unknowns; ``full`` is the mesh's problem it came from."""
-
-    full: object = None
+    """A problem on the free unknowns (no constraint of its own, so ``n_free`` is ``n_nodes``)."""
 
     @property
     def n_nodes(self) -> int:
         return len(self.initial)
-
-    @property
-    def n_free(self) -> int:
-        return len(self.initial)
-
-    @property
-    def n_mesh(self) -> int:
-        return self.mesh.n_nodes
 
 
 def restricted_part_nodes(pn: PartNodes, free: np.ndarray, n_all: int) -> PartNodes:
@@ -76,8 +65,8 @@ def free_view(problem) -> FreeProblem:
         capacity=capacity, lumped=lumped,
         heat_shares=(problem.heat_shares @ p).tocsr(), heat_profiles=problem.heat_profiles,
         conv_loads=[(pt @ b, amb) for b, amb in problem.conv_loads],
-        probes=(problem.probes @ p).tocsr(), initial=np.asarray(problem.initial, dtype=float)[free],
+        probes=(problem.probes @ p).tocsr(), initial=d0[free],
         part_nodes=restricted_part_nodes(problem.part_nodes, free, problem.n_nodes),
         part_volume=problem.part_volume, warnings=problem.warnings, pattern=None,
         surface_loads=[(pt @ s, prof) for s, prof in problem.surface_loads], air=problem.air, radiation=None,
-        constraint=None, full=problem)
+        constraint=None)

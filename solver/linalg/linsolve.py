@@ -477,17 +477,6 @@ class ConstrainedSolver:
         """Wrap a solver already made for PᵀAP (it is closed with this one)."""
         return cls(None, "", constraint, inner=inner)
 
-    @property
-    def ps(self):
-        return getattr(self.inner, "ps", None)
-
-    @property
-    def single(self):
-        return getattr(self.inner, "single", False)
-
-    def factor_bytes(self) -> int:
-        return self.inner.factor_bytes()
-
     def solve(self, b, x0=None):
         b = np.asarray(b, dtype=np.float64)
         xr = self.inner.solve(self.pt @ b, None if x0 is None else np.asarray(x0)[self.free])

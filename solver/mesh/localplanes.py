@@ -60,12 +60,18 @@ def active_masks(lines_mm, regions) -> list[np.ndarray]:
     return out
 
 
+def _activity(mesh, regions):
+    """(plane positions mm, per-axis active masks, mask of the grid's free nodes)."""
+    lines_mm = [np.asarray(l) / 1e-3 for l in mesh.lines]
+    act = active_masks(lines_mm, regions)
+    return lines_mm, act, (mesh.grid_node_id >= 0) & act[0] & act[1] & act[2]
+
+
 def free_count(mesh) -> int:
     """Mesh nodes that are unknowns (active along all three axes), without building P."""
     if is_global(mesh.regions):
         return mesh.n_nodes
-    act = active_masks([np.asarray(l) / 1e-3 for l in mesh.lines], mesh.regions)
-    return int(((mesh.grid_node_id >= 0) & act[0] & act[1] & act[2]).sum())
+    return int(_activity(mesh, mesh.regions)[2].sum())
 
 
 def _brackets(act: np.ndarray, ax: int) -> tuple[np.ndarray, np.ndarray]:
@@ -88,10 +94,8 @@ def prolongation(mesh, regions, extra_unknowns: int = 0):
         return None
     gid = mesh.grid_node_id
     exists = gid >= 0
-    lines_mm = [np.asarray(l) / 1e-3 for l in mesh.lines]
-    act = active_masks(lines_mm, regions)
-    all_active = act[0] & act[1] & act[2]
-    hanging = exists & ~all_active
+    lines_mm, act, free_mask = _activity(mesh, regions)
+    hanging = exists & ~free_mask
     if not hanging.any():
         return None
     n = mesh.n_nodes
@@ -120,7 +124,7 @@ def prolongation(mesh, regions, extra_unknowns: int = 0):
         rows += [g, g]
         cols += [g0, g1]
         vals += [1.0 - w1, w1]
-    free_nodes = np.sort(gid[exists & all_active])
+    free_nodes = np.sort(gid[free_mask])
     rows.append(free_nodes)
     cols.append(free_nodes)
     vals.append(np.ones(len(free_nodes)))
