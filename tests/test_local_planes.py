@@ -195,3 +195,64 @@ def test_constrained_solvers_agree_with_a_dense_solve_of_the_galerkin_system(met
     assert np.abs(x - dense).max() < 1e-6 * np.abs(dense).max()
     view = free_view(problem)  # the free view's capacity is PᵀMP of the consistent matrix
     assert abs(view.capacity - (pc.T @ problem.capacity @ pc)).max() < 1e-15
+
+
+def two_spot_mesh(model):
+    """Every interval bisected; the new planes active in two boxes, one around each corner of the
+    board (x 0-10 and 30-40 mm), not between them."""
+    lines = plan_lines(model)
+    out_lines, out_regions = [], []
+    for a in range(3):
+        u, v = [b for b in range(3) if b != a]
+        mids = 0.5 * (lines[a][:-1] + lines[a][1:])
+        merged = np.sort(np.concatenate([lines[a], mids]))
+        boxes = np.full((len(merged), 2, 4), np.nan)
+        boxes[:, 0] = [-np.inf, np.inf, -np.inf, np.inf]
+        new = np.isin(merged, mids)
+        if a == 0:  # new x-planes stay global; y- and z-planes get two boxes along x
+            boxes[new, 0] = [-np.inf, np.inf, -np.inf, np.inf]
+        else:
+            for k, (x0, x1) in enumerate(((0.0, 10.0), (30.0, 40.0))):
+                boxes[new, k] = [x0, x1, -np.inf, np.inf]  # x is the first of the other two axes
+        out_lines.append(merged)
+        out_regions.append(boxes)
+    return build_mesh(model, lines_mm=out_lines, regions=out_regions)
+
+
+def test_planes_with_two_boxes_hang_between_them_and_reproduce_linear_fields():
+    from solver.mesh.localplanes import active_masks
+
+    model = solver.parse_model(hot_spot_plate())
+    mesh = two_spot_mesh(model)
+    lines_mm = [l / 1e-3 for l in mesh.lines]
+    act = active_masks(lines_mm, mesh.regions)
+    z_new = 1  # the first bisecting z-plane (between the two planned ones)
+    x = lines_mm[0]
+    on = act[2][:, :, z_new].any(axis=1)
+    assert on[x <= 10.0].all() and on[(x >= 30.0)].all() and not on[(x > 10.5) & (x < 29.5)].any()
+    p, free = prolongation(mesh, mesh.regions)
+    assert len(free) < mesh.n_nodes
+    xyz = mesh.nodes
+    linear = 1.0 - 4.0 * xyz[:, 0] + 2.5 * xyz[:, 1] + 9.0 * xyz[:, 2]
+    assert np.abs(p @ linear[free] - linear).max() < 1e-12
+
+
+def test_refinement_boxes_follow_separate_hot_spots():
+    """Two clusters of indicator in one slab give two boxes (scipy.ndimage connected
+    components), not one box spanning the gap; too many boxes merge by least added area."""
+    from solver.mesh.refinement import REGION_MARGIN_CELLS, _boxes_of, merge_boxes
+
+    lines_u = np.arange(41, dtype=float)  # 40 cells of 1 mm
+    lines_v = np.arange(31, dtype=float)
+    w = np.zeros((40, 30))
+    w[3:6, 4:7] = 1.0
+    w[30:33, 20:24] = 2.0
+    boxes = sorted(_boxes_of(w, lines_u, lines_v), key=lambda b: b[0])
+    m = REGION_MARGIN_CELLS
+    assert len(boxes) == 2
+    assert np.allclose(boxes[0], [3 - m, 6 + m, 4 - m, 7 + m])
+    assert np.allclose(boxes[1], [30 - m, 33 + m, 20 - m, 24 + m])
+    three = [np.array([0, 1, 0, 1.0]), np.array([1, 2, 0, 1.0]), np.array([10, 11, 10, 11.0])]
+    merged = sorted(merge_boxes(three, limit=2), key=lambda b: b[0])
+    assert np.allclose(merged[0], [0, 2, 0, 1]) and np.allclose(merged[1], [10, 11, 10, 11])
+    assert len(merge_boxes(three + [np.array([-np.inf, np.inf, -np.inf, np.inf])])) == 1

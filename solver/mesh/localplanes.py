@@ -14,9 +14,12 @@ mesh-node vectors while the factorization only sees the free nodes. This is the 
 Kuhn tetrahedra (common practice, no source; see e.g. the "hanging node constraints" of
 deal.II's documentation for the hexahedral case, from memory).
 
-Regions are stored per axis as an array (n_planes, 4) of [u_lo, u_hi, v_lo, v_hi] in mm, where
-u, v are the other two axes in increasing order; a plane active everywhere has ±inf. Lengths in
-millimetres here (the planes handed to the mesher), metres on the mesh.
+Regions are stored per axis as an array (n_planes, n_boxes, 4) of boxes [u_lo, u_hi, v_lo, v_hi]
+in mm, where u, v are the other two axes in increasing order: a plane is active over the union of
+its boxes (unused slots are NaN), so one plane can serve several hot spots apart from each other
+without being active between them. A plane active everywhere has a box of ±inf; an array
+(n_planes, 4) means one box per plane. Lengths in millimetres here (the planes handed to the
+mesher), metres on the mesh.
 """
 from __future__ import annotations
 
@@ -24,6 +27,7 @@ import numpy as np
 import scipy.sparse as sp
 
 EVERYWHERE = np.array([-np.inf, np.inf, -np.inf, np.inf])
+UNUSED = np.full(4, np.nan)  # an empty box slot: no coordinate lies in it
 _EPS_MM = 1e-9
 MAX_DEPTH = 64  # chains of interpolations longer than this mean the regions are inconsistent
 
@@ -37,12 +41,25 @@ def other_axes(ax: int) -> tuple[int, int]:
 
 
 def global_regions(lines_mm) -> tuple:
-    """Regions for planes that are all active everywhere."""
-    return tuple(np.tile(EVERYWHERE, (len(l), 1)) for l in lines_mm)
+    """Regions for planes that are all active everywhere (one box each)."""
+    return tuple(np.tile(EVERYWHERE, (len(l), 1, 1)) for l in lines_mm)
+
+
+def as_boxes(r) -> np.ndarray:
+    """One axis's regions as (n_planes, n_boxes, 4), from either stored shape."""
+    r = np.asarray(r, dtype=float)
+    return r[:, None, :] if r.ndim == 2 else r
+
+
+def everywhere(r) -> np.ndarray:
+    """Per plane of one axis: True where one of its boxes is the whole plane."""
+    b = as_boxes(r)
+    return np.any((b[..., 0] == -np.inf) & (b[..., 1] == np.inf) & (b[..., 2] == -np.inf) & (b[..., 3] == np.inf),
+                  axis=1)
 
 
 def is_global(regions) -> bool:
-    return regions is None or all(np.all(np.isinf(r)) for r in regions)
+    return regions is None or all(np.all(everywhere(r)) for r in regions)
 
 
 def active_masks(lines_mm, regions) -> list[np.ndarray]:
@@ -51,11 +68,13 @@ def active_masks(lines_mm, regions) -> list[np.ndarray]:
     out = []
     for a in range(3):
         u, v = other_axes(a)
-        r = np.asarray(regions[a], dtype=float)
+        r = as_boxes(regions[a])
         cu, cv = np.asarray(lines_mm[u], dtype=float), np.asarray(lines_mm[v], dtype=float)
-        in_u = (cu[None, :] >= r[:, 0:1] - _EPS_MM) & (cu[None, :] <= r[:, 1:2] + _EPS_MM)
-        in_v = (cv[None, :] >= r[:, 2:3] - _EPS_MM) & (cv[None, :] <= r[:, 3:4] + _EPS_MM)
-        act = in_u[:, :, None] & in_v[:, None, :]  # axes (a, u, v)
+        act = np.zeros((r.shape[0], len(cu), len(cv)), dtype=bool)  # axes (a, u, v)
+        for k in range(r.shape[1]):  # a handful of box slots; NaN slots select nothing
+            in_u = (cu[None, :] >= r[:, k, 0:1] - _EPS_MM) & (cu[None, :] <= r[:, k, 1:2] + _EPS_MM)
+            in_v = (cv[None, :] >= r[:, k, 2:3] - _EPS_MM) & (cv[None, :] <= r[:, k, 3:4] + _EPS_MM)
+            act |= in_u[:, :, None] & in_v[:, None, :]
         out.append(np.moveaxis(act, 0, a))
     return out
 

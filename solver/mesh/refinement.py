@@ -27,7 +27,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from solver.mesh.gridlines import grade
-from solver.mesh.localplanes import EVERYWHERE, global_regions, other_axes
+from solver.mesh.localplanes import EVERYWHERE, as_boxes, global_regions, other_axes
 from solver.mesh.mesher import MM, Mesh
 
 BULK_FRACTION = 1.0  # Dörfler's θ: share of the total indicator the marked intervals must cover
@@ -270,22 +270,56 @@ def refined_lines(model, mesh: Mesh, fields, duals=None, hot_nodes=(), hot_parts
 
 REGION_COVER = 0.95  # a new plane is active over the cells holding this share of its interval's indicator ...
 REGION_MARGIN_CELLS = 2  # ... widened by this many cells on every side
+MAX_BOXES = 8  # boxes per plane: separate hot spots (parts, standoffs) each get their own
 
 
-def _box_of(weights: np.ndarray, lines_u_mm: np.ndarray, lines_v_mm: np.ndarray) -> np.ndarray | None:
-    """[u_lo, u_hi, v_lo, v_hi] (mm) of the cells holding REGION_COVER of ``weights`` (n_u, n_v),
-    widened by REGION_MARGIN_CELLS; None when the weights are all zero."""
+def _box_area(b: np.ndarray) -> float:
+    return float((b[1] - b[0]) * (b[3] - b[2]))
+
+
+def _hull(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    return np.array([min(a[0], b[0]), max(a[1], b[1]), min(a[2], b[2]), max(a[3], b[3])])
+
+
+def merge_boxes(boxes: list, limit: int = MAX_BOXES) -> list:
+    """At most ``limit`` boxes covering ``boxes``: a box of the whole plane replaces all, and
+    while there are too many, the pair whose enclosing box adds the least area is merged."""
+    boxes = [np.asarray(b, dtype=float) for b in boxes]
+    if any(np.all(np.isinf(b)) for b in boxes):
+        return [EVERYWHERE]
+    while len(boxes) > limit:
+        best = None
+        for i in range(len(boxes)):
+            for j in range(i + 1, len(boxes)):
+                extra = _box_area(_hull(boxes[i], boxes[j])) - _box_area(boxes[i]) - _box_area(boxes[j])
+                if best is None or extra < best[0]:
+                    best = (extra, i, j)
+        _, i, j = best
+        boxes[i] = _hull(boxes[i], boxes[j])
+        del boxes[j]
+    return boxes
+
+
+def _boxes_of(weights: np.ndarray, lines_u_mm: np.ndarray, lines_v_mm: np.ndarray) -> list:
+    """Boxes [u_lo, u_hi, v_lo, v_hi] (mm) around the cells holding REGION_COVER of ``weights``
+    (n_u, n_v), widened by REGION_MARGIN_CELLS: one per cluster of such cells (8-connected after
+    the widening, scipy.ndimage.label), at most MAX_BOXES; empty when the weights are all zero."""
+    from scipy import ndimage
+
     tot = float(weights.sum())
     if tot <= 0:
-        return None
+        return []
     flat = weights.ravel()
     order = np.argsort(-flat, kind="stable")
     n = int(np.searchsorted(np.cumsum(flat[order]), REGION_COVER * tot)) + 1
-    iu, iv = np.unravel_index(order[:n], weights.shape)
+    marked = np.zeros(weights.shape, dtype=bool)
+    marked.flat[order[:n]] = True
     m = REGION_MARGIN_CELLS
-    u0, u1 = max(0, int(iu.min()) - m), min(weights.shape[0], int(iu.max()) + 1 + m)
-    v0, v1 = max(0, int(iv.min()) - m), min(weights.shape[1], int(iv.max()) + 1 + m)
-    return np.array([lines_u_mm[u0], lines_u_mm[u1], lines_v_mm[v0], lines_v_mm[v1]])
+    grown = ndimage.binary_dilation(marked, structure=np.ones((2 * m + 1, 2 * m + 1), dtype=bool))
+    labels, _ = ndimage.label(grown, structure=np.ones((3, 3), dtype=bool))
+    boxes = [np.array([lines_u_mm[su.start], lines_u_mm[su.stop], lines_v_mm[sv.start], lines_v_mm[sv.stop]])
+             for su, sv in ndimage.find_objects(labels)]
+    return merge_boxes(boxes)
 
 
 def _part_box(model, part: int, ax: int) -> np.ndarray:
@@ -299,12 +333,19 @@ def _part_box(model, part: int, ax: int) -> np.ndarray:
     return np.array(out)
 
 
-def _union(a: np.ndarray | None, b: np.ndarray | None) -> np.ndarray | None:
-    if a is None:
-        return b
-    if b is None:
-        return a
-    return np.array([min(a[0], b[0]), max(a[1], b[1]), min(a[2], b[2]), max(a[3], b[3])])
+def _stored_boxes(region: np.ndarray) -> list:
+    """A plane's boxes (n_boxes, 4) as a list, unused (NaN) slots left out."""
+    return [b for b in region if not np.any(np.isnan(b))]
+
+
+def _pack(per_plane: list) -> np.ndarray:
+    """Lists of boxes per plane as a (n_planes, n_boxes, 4) array, NaN-padded."""
+    width = max(1, max(len(b) for b in per_plane))
+    out = np.full((len(per_plane), width, 4), np.nan)
+    for i, boxes in enumerate(per_plane):
+        for k, b in enumerate(boxes):
+            out[i, k] = b
+    return out
 
 
 def refined_planes(model, mesh: Mesh, fields, duals=None, hot_nodes=(), hot_parts=None,
@@ -322,30 +363,32 @@ def refined_planes(model, mesh: Mesh, fields, duals=None, hot_nodes=(), hot_part
         lines = mesh.lines[a] / MM
         marked = np.flatnonzero(masks[a])
         mids = 0.5 * (lines[marked] + lines[marked + 1])
-        boxes = []
+        new_boxes = []
         for j in marked:
-            box = _box_of(maps[a][j], lu, lv)
+            boxes = _boxes_of(maps[a][j], lu, lv)
             for part in forced[a].get(int(j), []):
-                box = _union(box, _part_box(model, part, a) if part is not None else EVERYWHERE)
-            boxes.append(EVERYWHERE if box is None else box)
+                boxes.append(_part_box(model, part, a) if part is not None else EVERYWHERE)
+            new_boxes.append(merge_boxes(boxes) if boxes else [EVERYWHERE])
         merged = np.concatenate([lines, mids])
-        merged_regions = np.vstack([np.asarray(old_regions[a], dtype=float)] + ([np.array(boxes)] if boxes else []))
+        merged_boxes = [_stored_boxes(r) for r in as_boxes(old_regions[a])] + new_boxes
         order = np.argsort(merged, kind="stable")
-        merged, merged_regions = merged[order], merged_regions[order]
+        merged = merged[order]
+        merged_boxes = [merged_boxes[i] for i in order]
         graded = grade(merged)
-        region = np.tile(EVERYWHERE, (len(graded), 1))
+        region = [[EVERYWHERE] for _ in range(len(graded))]
         pos = np.searchsorted(graded, merged - 1e-9)
-        region[pos] = merged_regions
+        for p, boxes in zip(pos, merged_boxes):
+            region[p] = boxes
         extra = np.setdiff1d(np.arange(len(graded)), pos)
         if len(extra):
             mid_pos = np.sort(np.searchsorted(graded, mids - 1e-9)) if len(mids) else np.zeros(0, dtype=int)
             for e in extra:  # a grading plane serves the new planes beside it
                 below = mid_pos[mid_pos < e]
                 above = mid_pos[mid_pos > e]
-                box = None
+                boxes = []
                 for nb in ([below[-1]] if len(below) else []) + ([above[0]] if len(above) else []):
-                    box = _union(box, region[nb])
-                region[e] = EVERYWHERE if box is None else box
+                    boxes += region[nb]
+                region[e] = merge_boxes(boxes) if boxes else [EVERYWHERE]
         lines_out.append(graded)
-        regions_out.append(region)
+        regions_out.append(_pack(region))
     return tuple(lines_out), tuple(regions_out)
