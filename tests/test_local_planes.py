@@ -256,3 +256,77 @@ def test_refinement_boxes_follow_separate_hot_spots():
     merged = sorted(merge_boxes(three, limit=2), key=lambda b: b[0])
     assert np.allclose(merged[0], [0, 2, 0, 1]) and np.allclose(merged[1], [10, 11, 10, 11])
     assert len(merge_boxes(three + [np.array([-np.inf, np.inf, -np.inf, np.inf])])) == 1
+
+
+def test_radiating_reduced_run_on_free_unknowns_bounds_its_error_against_a_stiff_ode_solver():
+    """Radiation with local planes: the reduced run (built and stepped on the free unknowns, the
+    loss read through P) against scipy's Radau integrator (stiff, error-controlled, rtol 1e-9) on
+    the constrained Galerkin system C u' = PᵀF − PᵀKP u − Pᵀ R(P u). As for the global grid
+    (tests/test_radiation.py), the run's own errors (basis estimate + step-halving time error)
+    must bracket its distance from that reference at each part's peak."""
+    from scipy.integrate import solve_ivp
+
+    d = hot_spot_plate(duration_s=120.0, board_mm=(12, 10, 1.6), chip_at=(3, 3), min_layers=1)
+    d["convection"][0]["emissivity"] = 0.9
+    d["convection"].append({"name": "top", "part": "chip", "side": "z+", "h": 5.0, "emissivity": 0.85,
+                            "surroundings_c": 10.0})
+    d["heat_loads"][0]["profile"] = {"type": "constant", "value": 0.3}
+    model = solver.parse_model(d)
+    mesh, _ = local_mesh(model)
+    problem = build_problem(model, mesh)
+    assert problem.radiation is not None and problem.constraint is not None
+    st = Stepper(problem, method="reduced")
+    events = list(st)
+    assert st.method == "reduced" and "radiation" in st.scheme and problem.n_free < 2500
+    peak = np.max([ev.part_max for ev in events], axis=0)
+    view = free_view(problem)
+    c_inv = np.linalg.inv(view.capacity.toarray())
+    a = c_inv @ view.stiffness.toarray()
+    g = c_inv @ view.load(0.0)
+    rad, pc = view.radiation, problem.constraint[0]
+    ts4 = rad.ts4(0.0)
+
+    def rhs(_t, u):
+        return g - a @ u - c_inv @ rad.node_flow(u, ts4)
+
+    def jac(_t, u):
+        s = np.bincount(rad.nodes, weights=4.0 * rad.weight * (rad.rows @ u + 273.15) ** 3, minlength=rad.n_mesh)
+        return -a - ((pc.T @ sp.diags(s) @ pc).T @ c_inv.T).T
+
+    ref = solve_ivp(rhs, (0.0, 120.0), view.initial, method="Radau", jac=jac, rtol=1e-9, atol=1e-9,
+                    t_eval=np.linspace(0.0, 120.0, 241))
+    assert ref.success
+    ref_peak = np.max([view.part_nodes.maxima(col) for col in ref.y.T], axis=0)
+    err = np.abs(peak - ref_peak)
+    bound = np.asarray(st.reduced_info.time_error_k) + st.reduced_info.error_estimate_k
+    print("free", problem.n_free, "of", problem.n_nodes, "rise", peak.max() - 25.0, "err", err, "bound", bound)
+    assert peak.max() - 25.0 > 20.0  # a real transient, radiating a share of the heat
+    assert np.all(err <= bound), (err, bound)
+
+
+def test_radiation_quadrature_moves_to_the_free_nodes_and_keeps_each_faces_area():
+    """With local planes the grey-body loss is evaluated on the free nodes only (weights Pᵀw):
+    each entry's weights still sum to εσ·(its area) (the area of the faces, from the box sizes),
+    a uniform temperature radiates exactly what the fine-grid quadrature gives, and a smooth
+    field within a small fraction of it (common practice, no source: moving nodal weights to the
+    interpolation's nodes is a coarser nodal quadrature of the same integral)."""
+    from solver.fem.radiation import SIGMA
+
+    d = hot_spot_plate(board_mm=(12, 10, 1.6), chip_at=(3, 3), min_layers=1)
+    d["convection"][0]["emissivity"] = 0.9
+    model = solver.parse_model(d)
+    mesh, lines = local_mesh(model)
+    local = build_problem(model, mesh)
+    fine = build_problem(model, build_mesh(model, lines_mm=lines))
+    pc, free = local.constraint
+    assert np.isin(local.radiation.nodes, free).all()
+    assert len(np.unique(local.radiation.nodes)) < len(np.unique(fine.radiation.nodes))
+    area = 12e-3 * 10e-3  # the board's underside, m²
+    assert abs(local.radiation.weight.sum() - 0.9 * SIGMA * area) < 1e-12 * SIGMA * area
+    ts4 = fine.radiation.ts4(0.0)
+    uniform = np.full(fine.n_nodes, 80.0)
+    assert abs(local.radiation.total(uniform, ts4) - fine.radiation.total(uniform, ts4)) < 1e-12
+    x = mesh.nodes
+    smooth = 60.0 + 2000.0 * x[:, 0] + 1500.0 * x[:, 1]  # 60-90 °C across the board
+    a, b = local.radiation.total(smooth, ts4), fine.radiation.total(smooth, ts4)
+    assert abs(a - b) < 1e-3 * abs(b), (a, b)

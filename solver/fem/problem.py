@@ -19,7 +19,7 @@ from solver.errors import ModelError
 from solver.mesh.mesher import MM, SIDE_AXIS, Mesh, build_mesh, convection_face_mask, isolated_parts
 from solver.fem.probes import probe_matrix
 from solver.mesh.localplanes import RegionError, prolongation
-from solver.fem.radiation import build_radiation
+from solver.fem.radiation import build_radiation, on_free_nodes as radiation_on_free_nodes
 from solver.model.profiles import Constant, ProfileFunction, make_profile, scaled
 
 
@@ -378,6 +378,8 @@ def build_problem(model, mesh: Mesh | None = None) -> Problem:
             constraint = prolongation(mesh, mesh.regions, n_all - n)
         except RegionError as e:  # every node stays free: the fine grid itself, correct but larger
             warnings.append(f"local refinement planes made global ({e})")
+    if constraint is not None and radiation is not None:
+        radiation = radiation_on_free_nodes(radiation, *constraint)
     return Problem(model, mesh, kc, conv, capacity, lumped, shares, heat_profiles, conv_loads, pmat,
                    initial, PartNodes(index, offsets, counts), part_vol, warnings, pattern, surface, air, radiation,
                    constraint)

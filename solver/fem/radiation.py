@@ -42,6 +42,15 @@ class Radiation:
     names: list  # convection entry names
     n: int  # unknowns of the system
 
+    def basis_rows(self, v: np.ndarray) -> np.ndarray:
+        """(M, r): the rows of node vectors ``v`` (n, r) at each radiating entry's node."""
+        return v[self.nodes]
+
+    def patterns(self) -> np.ndarray:
+        """(n, m) face weights εσaᵢ of each radiating entry (W/K⁴): where its heat leaves."""
+        return np.column_stack([np.bincount(self.nodes[self.entry == e], weights=self.weight[self.entry == e],
+                                            minlength=self.n) for e in range(len(self.names))])
+
     def ts4(self, t: float, side: str = "right") -> np.ndarray:
         """(T_s + 273.15)⁴ per entry at ``t``, K⁴."""
         return np.array([(s.value(t, side) + KELVIN) ** 4 for s in self.surroundings])
@@ -71,6 +80,29 @@ class Radiation:
         for s in self.surroundings:
             out += s.breakpoints(t_end)
         return out
+
+
+def on_free_nodes(rad: Radiation, p, free: np.ndarray) -> Radiation:
+    """``rad`` with its nodal quadrature on the free nodes of a mesh with local planes
+    (:mod:`solver.mesh.localplanes`, T = P·u): each entry's weights εσaᵢ are moved from its
+    nodes to the free nodes they are interpolated from, w̃ = Pᵀw, and the weights sum to the same
+    εσ·area. A hanging node's temperature is a linear interpolation across one cell of a plane
+    that the refinement left inactive there, so moving its weight changes the quadrature only by
+    the curvature of T⁴ across that cell, which vanishes with the mesh; in exchange every step
+    evaluates T⁴ only where there are unknowns (on the radio box's finest mesh a fraction of the
+    surface nodes). ``p`` (N, n_free) and ``free`` (mesh ids of the unknowns) as from
+    :func:`solver.mesh.localplanes.prolongation`."""
+    pt = p.T.tocsr()
+    nodes, weight, entry = [], [], []
+    for e in range(len(rad.names)):
+        mine = rad.entry == e
+        w = pt @ np.bincount(rad.nodes[mine], weights=rad.weight[mine], minlength=p.shape[0])
+        j = np.flatnonzero(w)
+        nodes.append(free[j])
+        weight.append(w[j])
+        entry.append(np.full(len(j), e, dtype=rad.entry.dtype))
+    return Radiation(np.concatenate(nodes), np.concatenate(weight), np.concatenate(entry), rad.surroundings,
+                     rad.names, rad.n)
 
 
 def build_radiation(model, mesh, conv_masks, n_unknowns: int, make_profile, default_ambient):

@@ -154,6 +154,22 @@ class KrylovBasis:
         self._next_rhs = mass_times(self.problem, self.V[:, start:start + added])
         return added
 
+    def enrich(self, rhs: np.ndarray) -> int:
+        """Add the responses A⁻¹·rhs (N, k) to the last block (they do not start new Krylov
+        directions); returns the number of new columns."""
+        if rhs.shape[1] == 0 or self.full or not self.block_sizes:
+            return 0
+        solver = self.solver
+        if solver.iterative:
+            w = np.column_stack([solver.solve(rhs[:, j]) for j in range(rhs.shape[1])])
+        else:
+            w = solver.solve(rhs).reshape(rhs.shape)
+        self.solves += rhs.shape[1]
+        last = self.block_sizes.pop()
+        added = self._append(w)
+        self.block_sizes[-1] = last + added
+        return added
+
     def close(self) -> None:
         if self.solver is not None:
             self.solver.close()
