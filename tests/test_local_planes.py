@@ -260,13 +260,13 @@ def test_refinement_boxes_follow_separate_hot_spots():
 
 def test_radiating_reduced_run_on_free_unknowns_bounds_its_error_against_a_stiff_ode_solver():
     """Radiation with local planes: the reduced run (built and stepped on the free unknowns, the
-    loss read through P) against scipy's Radau integrator (stiff, error-controlled, rtol 1e-9) on
+    loss read through P) against scipy's Radau integrator (stiff, error-controlled, rtol 1e-7) on
     the constrained Galerkin system C u' = PᵀF − PᵀKP u − Pᵀ R(P u). As for the global grid
     (tests/test_radiation.py), the run's own errors (basis estimate + step-halving time error)
     must bracket its distance from that reference at each part's peak."""
     from scipy.integrate import solve_ivp
 
-    d = hot_spot_plate(duration_s=120.0, board_mm=(12, 10, 1.6), chip_at=(3, 3), min_layers=1)
+    d = hot_spot_plate(duration_s=120.0, board_mm=(10, 8, 1.6), chip_at=(3, 3), min_layers=1)
     d["convection"][0]["emissivity"] = 0.9
     d["convection"].append({"name": "top", "part": "chip", "side": "z+", "h": 5.0, "emissivity": 0.85,
                             "surroundings_c": 10.0})
@@ -293,7 +293,7 @@ def test_radiating_reduced_run_on_free_unknowns_bounds_its_error_against_a_stiff
         s = np.bincount(rad.nodes, weights=4.0 * rad.weight * (rad.rows @ u + 273.15) ** 3, minlength=rad.n_mesh)
         return -a - ((pc.T @ sp.diags(s) @ pc).T @ c_inv.T).T
 
-    ref = solve_ivp(rhs, (0.0, 120.0), view.initial, method="Radau", jac=jac, rtol=1e-9, atol=1e-9,
+    ref = solve_ivp(rhs, (0.0, 120.0), view.initial, method="Radau", jac=jac, rtol=1e-7, atol=1e-7,
                     t_eval=np.linspace(0.0, 120.0, 241))
     assert ref.success
     ref_peak = np.max([view.part_nodes.maxima(col) for col in ref.y.T], axis=0)

@@ -170,6 +170,11 @@ class KrylovBasis:
         self.block_sizes[-1] = last + added
         return added
 
+    def release(self) -> None:
+        """Free the basis storage (after the caller has copied what it keeps)."""
+        self._store = np.zeros((self._store.shape[0], 0), order="F")
+        self.size = 0
+
     def close(self) -> None:
         if self.solver is not None:
             self.solver.close()

@@ -263,6 +263,9 @@ def run_reduced(stepper) -> Iterator:
     if p is not full:  # back to the mesh: every node's value, hanging ones interpolated
         pc, free = full.constraint
         v, nodes = np.asarray(pc @ v), free[nodes]
+    else:
+        v = v.copy()
+    basis.release()  # the preallocated storage is not needed for the events
     yield from _events(stepper, grid, v, q, qint, nodes, t_start)
 
 

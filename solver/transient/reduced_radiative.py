@@ -86,9 +86,9 @@ def nonlinear_snapshots(problem, v: np.ndarray, q: np.ndarray, nodes: np.ndarray
 
     The Krylov basis is built from the slope at the initial temperatures, and the radiated heat
     grows like T⁴: the responses to the radiated heat where the run is hot are directions that
-    basis reaches only slowly. Measured on a radiating plate (tests/test_local_planes.py): without
-    them a chip's peak was 0.13 K off at 17 vectors while one block's change was 0.03 K (so the
-    estimate missed it); with them 0.002 K off at 23 vectors, the change then 0.04 K."""
+    basis reaches only slowly. Measured on a radiating plate (docs/physics.md): without them a
+    part's peak was 0.13 K off at 17 vectors while one block's change was 0.03 K (so the estimate
+    missed it); with them 0.002 K off at 23 vectors, the change then 0.04 K."""
     rad = problem.radiation
     hot = v[nodes] @ q if len(nodes) else v @ q
     cols = np.unique([max(1, int(np.argmax(hot.max(axis=0)))), q.shape[1] - 1])
@@ -301,6 +301,9 @@ def run_reduced_radiative(stepper) -> Iterator:
     if p is not full:  # back to the mesh: every node's value, hanging ones interpolated
         pc, free = full.constraint
         v, nodes = np.asarray(pc @ v), free[nodes]
+    else:
+        v = v.copy()
+    basis.release()  # the preallocated storage is not needed for the events
     yield from _events(stepper, grid, v, q, radiated, nodes, t_start)
 
 
