@@ -44,23 +44,33 @@ def hot_spot_plate(duration_s=60.0, tolerance_k=None, method="reduced", board_mm
     return d
 
 
-def local_mesh(model):
-    """The planned planes with every interval bisected, the new planes active only within 2 mm of
-    the part (in the two other axes)."""
-    chip = model.parts[model.part_index("chip")]
-    lo = np.asarray(chip.origin_mm) - 2.0
-    hi = np.asarray(chip.origin_mm) + np.asarray(chip.size_mm) + 2.0
+def bisected_mesh(model, regions_for):
+    """The planned planes with every interval bisected; ``regions_for(a, u, v, new)`` gives axis a's
+    regions (``new`` marks the bisecting planes; u, v the other two axes)."""
     lines = plan_lines(model)
     out_lines, out_regions = [], []
     for a in range(3):
         u, v = [b for b in range(3) if b != a]
         mids = 0.5 * (lines[a][:-1] + lines[a][1:])
         merged = np.sort(np.concatenate([lines[a], mids]))
-        regions = np.tile([-np.inf, np.inf, -np.inf, np.inf], (len(merged), 1))
-        regions[np.isin(merged, mids)] = [lo[u], hi[u], lo[v], hi[v]]
         out_lines.append(merged)
-        out_regions.append(regions)
+        out_regions.append(regions_for(a, u, v, np.isin(merged, mids)))
     return build_mesh(model, lines_mm=out_lines, regions=out_regions), out_lines
+
+
+def local_mesh(model):
+    """Every interval bisected, the new planes active only within 2 mm of the part (in the two
+    other axes)."""
+    chip = model.parts[model.part_index("chip")]
+    lo = np.asarray(chip.origin_mm) - 2.0
+    hi = np.asarray(chip.origin_mm) + np.asarray(chip.size_mm) + 2.0
+
+    def regions_for(a, u, v, new):
+        regions = np.tile([-np.inf, np.inf, -np.inf, np.inf], (len(new), 1))
+        regions[new] = [lo[u], hi[u], lo[v], hi[v]]
+        return regions
+
+    return bisected_mesh(model, regions_for)
 
 
 def test_prolongation_interpolates_linear_fields_and_keeps_free_nodes():
@@ -200,23 +210,17 @@ def test_constrained_solvers_agree_with_a_dense_solve_of_the_galerkin_system(met
 def two_spot_mesh(model):
     """Every interval bisected; the new planes active in two boxes, one around each corner of the
     board (x 0-10 and 30-40 mm), not between them."""
-    lines = plan_lines(model)
-    out_lines, out_regions = [], []
-    for a in range(3):
-        u, v = [b for b in range(3) if b != a]
-        mids = 0.5 * (lines[a][:-1] + lines[a][1:])
-        merged = np.sort(np.concatenate([lines[a], mids]))
-        boxes = np.full((len(merged), 2, 4), np.nan)
+
+    def regions_for(a, u, v, new):
+        boxes = np.full((len(new), 2, 4), np.nan)
         boxes[:, 0] = [-np.inf, np.inf, -np.inf, np.inf]
-        new = np.isin(merged, mids)
-        if a == 0:  # new x-planes stay global; y- and z-planes get two boxes along x
-            boxes[new, 0] = [-np.inf, np.inf, -np.inf, np.inf]
-        else:
+        if a != 0:  # new x-planes stay global; y- and z-planes get two boxes along x
+            boxes[new, 0] = np.nan
             for k, (x0, x1) in enumerate(((0.0, 10.0), (30.0, 40.0))):
                 boxes[new, k] = [x0, x1, -np.inf, np.inf]  # x is the first of the other two axes
-        out_lines.append(merged)
-        out_regions.append(boxes)
-    return build_mesh(model, lines_mm=out_lines, regions=out_regions)
+        return boxes
+
+    return bisected_mesh(model, regions_for)[0]
 
 
 def test_planes_with_two_boxes_hang_between_them_and_reproduce_linear_fields():

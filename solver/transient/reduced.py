@@ -259,14 +259,22 @@ def run_reduced(stepper) -> Iterator:
         yield from stepper._run_full()
         return
     r, q, qint, nodes = result
+    v, nodes = mesh_basis(full, p, basis, r, nodes)
+    yield from _events(stepper, grid, v, q, qint, nodes, t_start)
+
+
+def mesh_basis(full, p, basis: KrylovBasis, r: int, nodes: np.ndarray):
+    """(the first r basis columns on every mesh node, the candidate nodes in mesh numbering); with
+    local planes (``p`` the free view of ``full``) hanging nodes are interpolated, P·V. The basis'
+    preallocated storage is released: the events need only these columns."""
     v = basis.V[:, :r]
-    if p is not full:  # back to the mesh: every node's value, hanging ones interpolated
+    if p is not full:
         pc, free = full.constraint
         v, nodes = np.asarray(pc @ v), free[nodes]
     else:
         v = v.copy()
-    basis.release()  # the preallocated storage is not needed for the events
-    yield from _events(stepper, grid, v, q, qint, nodes, t_start)
+    basis.release()
+    return v, nodes
 
 
 def _events(stepper, grid: SampleGrid, v: np.ndarray, q: np.ndarray, qint: np.ndarray, nodes: np.ndarray,

@@ -37,7 +37,7 @@ from solver.transient.krylov import KrylovBasis
 from solver.transient.loads import LoadCombiner
 from solver.transient.timegrid import time_error_bound
 from solver.transient.reduced import (DEFAULT_TOLERANCE_K, MAX_BASIS_BYTES, MAX_BLOCKS, MAX_COLUMNS, MIN_BLOCKS,
-                                      ProjectedRun, ReducedInfo, SampleGrid, candidate_part_maxima, estimate_error,
+                                      ProjectedRun, ReducedInfo, mesh_basis, SampleGrid, candidate_part_maxima, estimate_error,
                                       event_indices, hottest_nodes)
 
 NEWTON_TOL_K = 1e-6  # K: largest change of a radiating node's temperature in the last iteration
@@ -297,13 +297,7 @@ def run_reduced_radiative(stepper) -> Iterator:
         yield from stepper._run_full()
         return
     r, q, radiated, nodes = result
-    v = basis.V[:, :r]
-    if p is not full:  # back to the mesh: every node's value, hanging ones interpolated
-        pc, free = full.constraint
-        v, nodes = np.asarray(pc @ v), free[nodes]
-    else:
-        v = v.copy()
-    basis.release()  # the preallocated storage is not needed for the events
+    v, nodes = mesh_basis(full, p, basis, r, nodes)
     yield from _events(stepper, grid, v, q, radiated, nodes, t_start)
 
 
