@@ -14,7 +14,9 @@ maximum over all its nodes.
 Radiation stays where it is computed, at the mesh's radiating nodes: :class:`FreeRadiation`
 reads their temperatures as rows of ``P·u`` and hands the heat back through ``Pᵀ``, which is the
 Galerkin form ``Pᵀ R(P u)`` of the nodal-quadrature loss. Its slope (for a shift matrix) is
-lumped to ``Pᵀ s``, the row sums of ``Pᵀ diag(s) P``.
+lumped to ``Pᵀ s``, the row sums of ``Pᵀ diag(s) P``. (:func:`solver.fem.problem.build_problem`
+already puts the quadrature on free nodes, whose rows of P are the identity, so for its problems
+the rows are a selection and the lumped slope is exact.)
 """
 from __future__ import annotations
 
