@@ -11,22 +11,18 @@ A hanging node's value is a convex combination of free nodes of the same parts (
 stays inside one cell of the unrefined grid), so a part's maximum over its free nodes is its
 maximum over all its nodes.
 
-Radiation stays where it is computed, at the mesh's radiating nodes: :class:`FreeRadiation`
-reads their temperatures as rows of ``P·u`` and hands the heat back through ``Pᵀ``, which is the
-Galerkin form ``Pᵀ R(P u)`` of the nodal-quadrature loss. Its slope (for a shift matrix) is
-lumped to ``Pᵀ s``, the row sums of ``Pᵀ diag(s) P``. (:func:`solver.fem.problem.build_problem`
-already puts the quadrature on free nodes, whose rows of P are the identity, so for its problems
-the rows are a selection and the lumped slope is exact.)
+Radiation: :func:`solver.fem.problem.build_problem` puts the nodal quadrature of a mesh with local
+planes on its free nodes (:func:`solver.fem.radiation.on_free_nodes`), whose rows of P are the
+identity, so the free view's loss is the same radiation renumbered to the unknowns.
 """
 from __future__ import annotations
 
 import dataclasses
 
 import numpy as np
-import scipy.sparse as sp
 
 from solver.fem.problem import PartNodes, Problem
-from solver.fem.radiation import KELVIN, Radiation
+from solver.fem.radiation import Radiation
 
 
 @dataclasses.dataclass
@@ -38,49 +34,16 @@ class FreeProblem(Problem):
         return len(self.initial)
 
 
-@dataclasses.dataclass
-class FreeRadiation(Radiation):
-    """Radiation of the mesh's nodes seen from the free unknowns: ``rows`` (M, n_free) = P[nodes]
-    gives each radiating entry node's temperature, and ``pt`` (n_free, N) = Pᵀ sums mesh-node
-    heat flows onto the unknowns. ``n`` is the number of free unknowns, ``n_mesh`` the mesh's."""
-
-    rows: sp.csr_matrix = None
-    pt: sp.csr_matrix = None
-    n_mesh: int = 0
-
-    def _tk(self, d: np.ndarray) -> np.ndarray:
-        return self.rows @ d + KELVIN
-
-    def basis_rows(self, v: np.ndarray) -> np.ndarray:
-        return np.asarray(self.rows @ v)
-
-    def patterns(self) -> np.ndarray:
-        mesh = np.column_stack([np.bincount(self.nodes[self.entry == e], weights=self.weight[self.entry == e],
-                                            minlength=self.n_mesh) for e in range(len(self.names))])
-        return np.asarray(self.pt @ mesh)
-
-    def node_flow(self, d: np.ndarray, ts4: np.ndarray) -> np.ndarray:
-        flow = np.bincount(self.nodes, weights=self.weight * (self._tk(d) ** 4 - ts4[self.entry]),
-                           minlength=self.n_mesh)
-        return self.pt @ flow
-
-    def total(self, d: np.ndarray, ts4: np.ndarray) -> float:
-        return float(np.dot(self.weight, self._tk(d) ** 4 - ts4[self.entry]))
-
-    def per_entry(self, d: np.ndarray, ts4: np.ndarray) -> np.ndarray:
-        return np.bincount(self.entry, weights=self.weight * (self._tk(d) ** 4 - ts4[self.entry]),
-                           minlength=len(self.names))
-
-    def slope(self, d: np.ndarray) -> np.ndarray:
-        """(n_free,) Pᵀ s, the row sums of Pᵀ diag(4εσaᵢTᵢ³) P, W/K."""
-        s = np.bincount(self.nodes, weights=4.0 * self.weight * self._tk(d) ** 3, minlength=self.n_mesh)
-        return self.pt @ s
-
-
-def free_radiation(rad: Radiation, p: sp.csr_matrix, pt: sp.csr_matrix) -> FreeRadiation:
-    """``rad`` (on mesh nodes, plus any air unknowns) seen from the free unknowns of ``p``."""
-    return FreeRadiation(nodes=rad.nodes, weight=rad.weight, entry=rad.entry, surroundings=rad.surroundings,
-                         names=rad.names, n=p.shape[1], rows=p[rad.nodes].tocsr(), pt=pt, n_mesh=p.shape[0])
+def free_radiation(rad: Radiation, free: np.ndarray, n_all: int) -> Radiation:
+    """``rad`` renumbered to the free unknowns. Its nodes must all be free, as
+    :func:`solver.fem.problem.build_problem` makes them (:func:`solver.fem.radiation.on_free_nodes`),
+    so the loss of the free view is exactly Pᵀ R(P u)."""
+    inv = np.full(n_all, -1, dtype=np.int64)
+    inv[free] = np.arange(len(free))
+    nodes = inv[rad.nodes]
+    if np.any(nodes < 0):
+        raise ValueError("radiating nodes that hang: put the radiation on the free nodes first (on_free_nodes)")
+    return dataclasses.replace(rad, nodes=nodes, n=len(free))
 
 
 def restricted_part_nodes(pn: PartNodes, free: np.ndarray, n_all: int) -> PartNodes:
@@ -120,5 +83,5 @@ def free_view(problem) -> FreeProblem:
         part_nodes=restricted_part_nodes(problem.part_nodes, free, problem.n_nodes),
         part_volume=problem.part_volume, warnings=problem.warnings, pattern=None,
         surface_loads=[(pt @ s, prof) for s, prof in problem.surface_loads], air=problem.air,
-        radiation=None if problem.radiation is None else free_radiation(problem.radiation, p, pt),
+        radiation=None if problem.radiation is None else free_radiation(problem.radiation, free, problem.n_nodes),
         constraint=None)

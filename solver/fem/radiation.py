@@ -42,10 +42,6 @@ class Radiation:
     names: list  # convection entry names
     n: int  # unknowns of the system
 
-    def basis_rows(self, v: np.ndarray) -> np.ndarray:
-        """(M, r): the rows of node vectors ``v`` (n, r) at each radiating entry's node."""
-        return v[self.nodes]
-
     def patterns(self) -> np.ndarray:
         """(n, m) face weights εσaᵢ of each radiating entry (W/K⁴): where its heat leaves."""
         return np.column_stack([np.bincount(self.nodes[self.entry == e], weights=self.weight[self.entry == e],

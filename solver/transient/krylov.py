@@ -136,19 +136,23 @@ class KrylovBasis:
         self.block_sizes.append(k)
         return k
 
+    def _solve(self, rhs: np.ndarray) -> np.ndarray:
+        """A⁻¹·rhs (N, k) with the shift factorization (an iterative solver one column at a time)."""
+        solver = self.solver
+        self.solves += rhs.shape[1]
+        if solver.iterative:
+            return np.column_stack([solver.solve(rhs[:, j]) for j in range(rhs.shape[1])])
+        return solver.solve(rhs).reshape(rhs.shape)
+
     def grow(self) -> int:
         """Add one block (one solve per column); returns the number of new columns."""
-        rhs, solver = self._next_rhs, self.solver
+        rhs = self._next_rhs
         if rhs.shape[1] == 0 or self.full:
             self.block_sizes.append(0)
             return 0
         if self.cancel is not None and self.cancel():
             raise Cancelled("cancelled while building the reduced basis")
-        if solver.iterative:  # one right-hand side at a time
-            w = np.column_stack([solver.solve(rhs[:, j]) for j in range(rhs.shape[1])])
-        else:
-            w = solver.solve(rhs).reshape(rhs.shape)
-        self.solves += rhs.shape[1]
+        w = self._solve(rhs)
         start = self.size
         added = self._append(w)
         self._next_rhs = mass_times(self.problem, self.V[:, start:start + added])
@@ -159,12 +163,7 @@ class KrylovBasis:
         directions); returns the number of new columns."""
         if rhs.shape[1] == 0 or self.full or not self.block_sizes:
             return 0
-        solver = self.solver
-        if solver.iterative:
-            w = np.column_stack([solver.solve(rhs[:, j]) for j in range(rhs.shape[1])])
-        else:
-            w = solver.solve(rhs).reshape(rhs.shape)
-        self.solves += rhs.shape[1]
+        w = self._solve(rhs)
         last = self.block_sizes.pop()
         added = self._append(w)
         self.block_sizes[-1] = last + added

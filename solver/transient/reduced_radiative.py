@@ -75,11 +75,6 @@ class StepGrid(SampleGrid):
         return cls(p, steps)
 
 
-def radiation_patterns(problem) -> np.ndarray:
-    """(N, m) face weights εσaᵢ of each radiating entry (W/K⁴): where the radiated heat leaves."""
-    return problem.radiation.patterns()
-
-
 def nonlinear_snapshots(problem, v: np.ndarray, q: np.ndarray, nodes: np.ndarray, grid: StepGrid) -> np.ndarray:
     """(n, 2) radiated heat per node (W) of the reduced field V q at its hottest sample (on the
     candidate ``nodes``) and at the end.
@@ -100,7 +95,7 @@ class ProjectedRadiation:
 
     def __init__(self, problem, v: np.ndarray):
         rad = problem.radiation
-        self.v = np.ascontiguousarray(rad.basis_rows(v))  # (n_rad, r): the basis on radiating nodes only
+        self.v = np.ascontiguousarray(v[rad.nodes])  # (n_rad, r): the basis on radiating nodes only
         self.w = rad.weight
         self.entry = rad.entry
         m = len(rad.names)
@@ -210,7 +205,7 @@ def run_reduced_radiative(stepper) -> Iterator:
     """Generator of StepEvents for a reduced-basis run of a radiating model (see module doc)."""
     full = stepper.problem
     # with local planes the basis is built, stepped and checked on the free unknowns (the small
-    # system, radiation read through P); the events carry mesh fields P·(V q)
+    # system; its radiating nodes are free ones); the events carry mesh fields P·(V q)
     p = free_view(full) if full.constraint is not None else full
     run = p.model.run
     t_start = _time.perf_counter()
@@ -227,7 +222,7 @@ def run_reduced_radiative(stepper) -> Iterator:
     t_factor = _time.perf_counter()
     basis = KrylovBasis(p, info.shift_per_s, method=stepper.choice.method, cancel=stepper.cancel,
                         max_columns=max_columns, extra_diagonal=p.radiation.slope(p.initial.astype(float)),
-                        extra_patterns=radiation_patterns(p))
+                        extra_patterns=p.radiation.patterns())
     stepper.factorizations += 1
     stepper.factor_bytes_measured = measured_double_factor_bytes(basis.solver)
     info.factor_s = _time.perf_counter() - t_factor
