@@ -6,8 +6,10 @@ import csv
 import json
 
 import numpy as np
+import pytest
 
 import solver
+from thermgui import cli
 from solver.run.session import RunSession
 from solver.answers.whatif import whatif_to_folder
 from tests import modelkit as mk
@@ -42,16 +44,26 @@ def read_peaks(path):
         return {r["part"]: r for r in csv.DictReader(f)}
 
 
+def band_status(row) -> str:
+    """The verdict a peaks.csv row's band implies (over / at-risk / ok, as docs/accuracy.md says)."""
+    from solver.results.recorder import PeakRow
+
+    rated = float(row["rated_c"]) if row["rated_c"] else None
+    err = float(row["peak_error_k"]) if row["peak_error_k"] else None
+    return PeakRow(row["part"], rated, float(row["peak_c"]), 0.0, None, None, (), 0.0, err).status
+
+
 def test_whatif_equals_fresh_solve(tmp_path, capsys):
     """Peaks and history of the superposed what-if against a fresh Crank–Nicolson solve of the
-    changed model at the same step (0.05 K, the issue's bound); the stored unit responses are
-    reused on a second what-if."""
+    changed model at the same step (0.05 K, the issue's bound); with ``--tolerance none`` the
+    peaks are the file's mesh's and every part carries a band from two finer meshes; the stored
+    unit responses are reused on a second what-if."""
     d = base_model()
     path = tmp_path / "m.json"
     path.write_text(json.dumps(d))
     out = tmp_path / "wi"
-    assert whatif_to_folder(path, out, ["chip=1.3"], 5.0, quiet=True) == 0
-    assert (out / "unit-responses.npz").exists()
+    assert whatif_to_folder(path, out, ["chip=1.3"], 5.0, quiet=True, tolerance_k=None) == 0
+    assert (out / "unit-responses" / "level-2.npz").exists()
     got = read_peaks(out / "peaks.csv")
     fresh = RunSession(solver.parse_model(changed_model(d, 1.3, 5.0)), tolerance_k=False)
     for _ in fresh.events():
@@ -59,7 +71,8 @@ def test_whatif_equals_fresh_solve(tmp_path, capsys):
     rows = {r.part: r for r in fresh.finish()}
     for part, r in rows.items():
         assert abs(float(got[part]["peak_c"]) - r.peak_c) < 0.05, (part, got[part]["peak_c"], r.peak_c)
-        assert got[part]["status"] == r.status
+        assert got[part]["peak_error_k"] and float(got[part]["peak_error_k"]) > 0, part
+        assert got[part]["status"] == band_status(got[part])
     t, pmax, _ = fresh.recorder.history_arrays()
     with open(out / "history.csv") as f:
         hist = list(csv.DictReader(f))
@@ -69,7 +82,7 @@ def test_whatif_equals_fresh_solve(tmp_path, capsys):
         assert np.max(np.abs(col - pmax[:, k])) < 0.05
     # second what-if: no new solve, and the base case (no change) equals the model's own run
     capsys.readouterr()
-    assert whatif_to_folder(path, out, [], 0.0) == 0
+    assert whatif_to_folder(path, out, [], 0.0, tolerance_k=None) == 0
     assert "reusing stored unit responses" in capsys.readouterr().err
     base = RunSession(solver.parse_model(d), tolerance_k=False)
     for _ in base.events():
@@ -77,6 +90,38 @@ def test_whatif_equals_fresh_solve(tmp_path, capsys):
     got = read_peaks(out / "peaks.csv")
     for r in base.finish():
         assert abs(float(got[r.part]["peak_c"]) - r.peak_c) < 0.05
+
+
+def test_whatif_command_refines_like_solve(tmp_path, capsys):
+    """``thermgui whatif`` with the file's mesh.tolerance_k (default 1 K) runs the same mesh ladder
+    as ``thermgui solve``: with the loads as in the file its peaks are the run's, and so are its bands
+    (within 0.1 K: the what-if adds the unit responses' basis change instead of the run's basis
+    estimate), and its verdicts follow its band. A new tolerance is a new ladder (not the stored one)."""
+    d = mk.chip_on_plate(duration_s=120.0, step_s=0.5, scheme="crank-nicolson", output_every_s=10.0)
+    d["parts"][1]["rated_c"] = 50.0
+    path = tmp_path / "m.json"
+    path.write_text(json.dumps(d))
+    out = tmp_path / "wi"
+    assert cli.main(["whatif", str(path), "--out", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert "on 3 meshes" in text
+    got = read_peaks(out / "peaks.csv")
+    session, run_rows = _run(d)
+    assert session.level >= 2  # the run refined: the what-if's peaks are not the file mesh's
+    for part, r in run_rows.items():
+        assert abs(float(got[part]["peak_c"]) - r.peak_c) < 0.05, part
+        assert abs(float(got[part]["peak_error_k"]) - r.peak_error_k) < 0.1, part
+        assert got[part]["status"] == band_status(got[part])
+    assert cli.main(["whatif", str(path), "--out", str(out), "--tolerance", "none"]) == 0
+    assert "reusing stored" not in capsys.readouterr().err
+    file_mesh = read_peaks(out / "peaks.csv")
+    for part in ("chip", "plate"):  # another ladder: the file's mesh, whose wider band holds the refined peak
+        coarse, fine = float(file_mesh[part]["peak_c"]), float(got[part]["peak_c"])
+        assert abs(coarse - fine) <= float(file_mesh[part]["peak_error_k"]), part
+    assert abs(float(file_mesh["chip"]["peak_c"]) - float(got["chip"]["peak_c"])) > 0.5  # not the same mesh
+    with pytest.raises(SystemExit) as e:  # argparse: exit 2, the option named on stderr
+        cli.main(["whatif", str(path), "--out", str(out), "--tolerance", "-1"])
+    assert e.value.code == 2 and "--tolerance" in capsys.readouterr().err
 
 
 def test_whatif_bad_scale_exit_2(tmp_path, capsys):

@@ -14,6 +14,12 @@ from solver.errors import ModelError, SolveError
 
 
 
+def _tolerance(text: str):
+    from solver.run.cli import _tolerance as parse
+
+    return parse(text)
+
+
 def add_commands(sub) -> None:
     """Register the subcommands on an argparse subparsers object."""
     p = sub.add_parser("zth", help="thermal impedance Zth(t) of rated parts, Foster/Cauer RC networks, SPICE")
@@ -31,11 +37,14 @@ def add_commands(sub) -> None:
     w.add_argument("model", help="model file (JSON, format thermgui-model version 1)")
     w.add_argument("--out", required=True,
                    help="folder for peaks.csv and history.csv of the what-if case; unit responses are kept "
-                        "there (unit-responses.npz) and reused while the model is unchanged")
+                        "there (unit-responses/) and reused while the model is unchanged")
     w.add_argument("--scale", action="append", default=[], metavar="LOAD=FACTOR",
                    help="scale a heat load (by its part's name, or heat_loads[i]); repeatable")
     w.add_argument("--ambient-offset", type=float, default=0.0, metavar="K",
                    help="add K kelvin to every ambient temperature (initial temperatures unchanged)")
+    w.add_argument("--tolerance", type=_tolerance, default="model", metavar="K",
+                   help="override mesh.tolerance_k for the meshes of the error band (as thermgui solve; "
+                        "'none' = the file's mesh, with two finer meshes for the band)")
     w.add_argument("--quiet", action="store_true")
     w.add_argument("--linear-solver", default="auto", choices=["auto", "direct", "multigrid"])
 
@@ -66,7 +75,7 @@ def run_command(args, stream=None, err=None) -> int:
     from solver.answers.whatif import whatif_to_folder
 
     return whatif_to_folder(args.model, args.out, args.scale, args.ambient_offset, quiet=args.quiet,
-                            linear_solver=args.linear_solver, stream=stream, err=err)
+                            linear_solver=args.linear_solver, stream=stream, err=err, tolerance_k=args.tolerance)
 
 
 def fit_networks(result, stages=None, passive: bool = False, warn=None):

@@ -45,6 +45,10 @@ SUPERPOSED_SCALE = re.compile(r"^heat_loads\[(\d+)\]\.scale$")
 AMBIENT_OFFSET = "ambient_offset_k"
 MAX_CASES = 10000
 CONNECT_TIMEOUT_S = 8.0
+# Sweeps answer on the file's mesh: no ladder per case (docs/one-solve-answers.md, "Mesh")
+MESH_NOTE = ("note: statuses and margins are on the file's mesh, without its mesh error (a coarse mesh can "
+             "read several kelvin off); check the worst cases with thermgui solve or thermgui whatif, which "
+             "give each peak its error band")
 CASE_COLUMNS = ["case", "part", "rated_c", "peak_c", "peak_time_s", "margin_k", "status", "basis_error_k"]
 
 _PATH_TOKEN = re.compile(r"([^.\[\]]+)|\[(\d+)\]")
@@ -433,6 +437,7 @@ def sweep_to_folder(sweep_path, out_dir, scheduler=None, workers=None, quiet=Fal
         with open(Path(out_dir) / "worst.csv") as f:
             stream.write("worst case per part:\n" + f.read())
         stream.write(f"{len(cases)} cases in {time.perf_counter() - t0:.1f} s; results in {out_dir}\n")
+        stream.write(MESH_NOTE + "\n")
         from solver.caution import CAUTION
 
         stream.write(CAUTION + "\n")

@@ -315,12 +315,21 @@ def parse_scales(model, specs) -> np.ndarray:
 
 
 def whatif_to_folder(model_path, out_dir, scale_specs, ambient_offset=0.0, quiet=False, linear_solver="auto",
-                     stream=None, err=None) -> int:
+                     stream=None, err=None, tolerance_k="model") -> int:
+    """``thermgui whatif``: the what-if's peaks.csv and history.csv, each peak with its error band.
+
+    The model's mesh ladder runs first, as ``thermgui solve`` would run it (``tolerance_k``:
+    "model" = the file's ``mesh.tolerance_k``, a number of kelvin, or None = the file's mesh with
+    two finer ones for the band), no files written; the unit responses are then built on the meshes
+    the run's bound came from and the what-if is evaluated on each, so its peaks carry the same kind
+    of bound as a run's (:mod:`solver.answers.whatifband`). Unit responses and planes are stored in
+    ``out_dir/unit-responses/`` and reused while the model (and tolerance) is unchanged."""
     from solver.caution import CAUTION
     from solver.run.cli import format_summary
     from solver.model.modelfile import load_model
-    from solver.fem.problem import build_problem
     from solver.io.writers import write_history_csv, write_peaks_csv
+    from solver.answers.whatifband import (LEVELS_CACHE, evaluate_with_band, load_levels, prepare_levels,
+                                           rows_with_band, save_levels)
 
     stream = stream if stream is not None else sys.stdout
     err = err if err is not None else sys.stderr
@@ -332,26 +341,30 @@ def whatif_to_folder(model_path, out_dir, scale_specs, ambient_offset=0.0, quiet
         model = load_model(model_path)
         check_whatif(model)
         scales = parse_scales(model, scale_specs)
-        problem = build_problem(model)
+        if tolerance_k != "model":
+            if tolerance_k is not None and not (isinstance(tolerance_k, (int, float)) and math.isfinite(tolerance_k)
+                                                and tolerance_k > 0):
+                raise ModelError(("--tolerance", "must be a positive number of kelvin or none"))
+            model.mesh.tolerance_k = tolerance_k
     except ModelError as e:
         err.write(e.with_source(e.source or str(model_path)).describe() + "\n")
         return 2
     out = Path(out_dir)
     digest = model_digest(model)
-    cache = out / CACHE_NAME
-    ur = UnitResponses.load(cache, digest) if cache.exists() else None
+    cache = out / LEVELS_CACHE
+    note = None
     try:
-        if ur is None:
-            say(f"{model_path}: {problem.n_nodes:,} nodes; computing unit responses")
-            ur = prepare_unit_responses(problem, linear_solver, progress=lambda m: say("  " + m))
-            out.mkdir(parents=True, exist_ok=True)
-            ur.save(cache, digest)
+        levels = load_levels(cache, digest, model) if cache.exists() else None
+        if levels is None:
+            levels, note = _band_levels(model, linear_solver, say, prepare_levels)
+            save_levels(cache, digest, *levels)
+            levels = levels[1]
         else:
             say(f"{model_path}: reusing stored unit responses in {cache}")
         t_eval = time.perf_counter()
-        rec = evaluate(problem, ur, scales, ambient_offset)
+        rec, bound = evaluate_with_band(levels, scales, ambient_offset)
+        rows = rows_with_band(rec, bound)
         t_eval = time.perf_counter() - t_eval
-        rows = rec.peak_rows()
         out.mkdir(parents=True, exist_ok=True)
         for name, writer in (("peaks.csv", lambda p: write_peaks_csv(p, rows)),
                              ("history.csv", lambda p: write_history_csv(p, rec))):
@@ -364,13 +377,44 @@ def whatif_to_folder(model_path, out_dir, scale_specs, ambient_offset=0.0, quiet
     except OSError as e:
         err.write(f"{out_dir}: cannot write results ({e.strerror or e})\n")
         return 1
+    problem = levels.problem
     for w in problem.warnings:
         say(f"warning: {w}")
+    if note:
+        say(f"warning: {note}")
     if not quiet:
+        ur = levels.units[levels.reported]
         desc = ", ".join(f"{hl.part} ×{s:g}" for hl, s in zip(model.heat_loads, scales) if s != 1.0) or "loads as in the file"
         stream.write(f"what-if: {desc}; ambient {ambient_offset:+g} K\n")
         stream.write(format_summary(rows) + "\n")
-        stream.write(f"evaluated in {t_eval:.2f} s from unit responses (basis {ur.v.shape[1]} vectors, last change "
-                     f"{ur.change_k:.2g} K); results in {out_dir} ({time.perf_counter() - t0:.1f} s)\n")
+        meshes = (f"on {len(levels.units)} meshes ({', '.join(f'{n:,}' for n in levels.nodes)} grid nodes; "
+                  f"peaks from the {levels.problem.n_nodes:,}-node mesh)" if len(levels.units) > 1 else
+                  "on the file's mesh only: no mesh error band")
+        stream.write(f"evaluated in {t_eval:.2f} s from unit responses {meshes} (basis {ur.v.shape[1]} vectors, "
+                     f"last change {levels.basis_change_k:.2g} K); results in {out_dir} "
+                     f"({time.perf_counter() - t0:.1f} s)\n")
         stream.write(CAUTION + "\n")
     return 0
+
+
+def _band_levels(model, linear_solver, say, prepare_levels):
+    """Run the model's mesh ladder (no files) and build unit responses on the meshes its bound
+    came from: ((BandLevels or None, WhatIfLevels), a warning when the ladder stopped short)."""
+    from solver.run.session import RunSession
+
+    session = RunSession(model, None, keep_fields=False, fields="none", linear_solver=linear_solver)
+    level = -1
+    for ev in session.events():
+        if ev.level != level:
+            level = ev.level
+            say(f"mesh level {level}: {session.problem.n_free:,} unknowns (the ladder of thermgui solve, "
+                "for the meshes of the error band)")
+    session.finish()
+    band = session.band_levels()
+    lad = session.ladder
+    note = None
+    if session.estimate and model.mesh.tolerance_k is not None and not lad.converged:
+        note = f"the mesh ladder stopped before the tolerance: {lad.stop_reason}"
+    levels = prepare_levels(model, band, session.problem, progress=lambda m: say("  " + m),
+                            linear_solver=linear_solver)
+    return (band, levels), note

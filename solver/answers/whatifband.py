@@ -13,10 +13,11 @@ run the band is the run's own, up to the basis errors of the two computations.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 
-from solver.answers.whatif import evaluate, prepare_unit_responses
+from solver.answers.whatif import UnitResponses, evaluate, prepare_unit_responses
 from solver.errors import Cancelled
 from solver.run.accuracy import reported_bound
 
@@ -91,3 +92,66 @@ def rows_with_band(rec, bound):
     for r, b in zip(rows, bound):
         r.peak_error_k = float(b) if np.isfinite(b) else None
     return rows
+
+
+LEVELS_CACHE = "unit-responses"  # folder in a what-if's --out: one .npz per mesh level
+LEVELS_VERSION = 1
+
+
+def save_levels(folder: Path, digest: str, band, levels: WhatIfLevels) -> None:
+    """Store every level's unit responses and planes (``band``: the BandLevels they came from, or
+    None for the file's mesh alone) so a later what-if on the same model skips the ladder."""
+    folder.mkdir(parents=True, exist_ok=True)
+    n = len(levels.units)
+    for i, u in enumerate(levels.units):
+        u.save(folder / f"level-{i}.npz", digest)
+        extra = {"version": LEVELS_VERSION, "digest": digest, "count": n, "reported": levels.reported,
+                 "nodes": levels.nodes[i], "has_lines": band is not None and band.lines_mm[i] is not None}
+        if extra["has_lines"]:
+            for ax, line in enumerate(band.lines_mm[i]):
+                extra[f"lines_{ax}"] = np.asarray(line, dtype=float)
+            regions = band.regions[i] if band.regions else None
+            extra["has_regions"] = regions is not None
+            if regions is not None:
+                for ax, r in enumerate(regions):
+                    extra[f"regions_{ax}"] = np.asarray(r, dtype=float)
+        tmp = folder / f"level-{i}.mesh.part.npz"
+        np.savez(tmp, **extra)
+        tmp.replace(folder / f"level-{i}.mesh.npz")
+
+
+def load_levels(folder: Path, digest: str, model, problem_for=None) -> WhatIfLevels | None:
+    """The levels stored by :func:`save_levels` for this model (``digest``), meshed again from their
+    planes; None when missing, unreadable or for another model. ``problem_for(lines, regions)``
+    builds a level's problem (default: build_mesh + build_problem)."""
+    from solver.fem.problem import build_problem
+    from solver.mesh.mesher import build_mesh
+
+    if problem_for is None:
+        def problem_for(lines, regions):
+            return build_problem(model, build_mesh(model, lines_mm=lines, regions=regions))
+    try:
+        with np.load(folder / "level-0.mesh.npz") as f:
+            if int(f["version"]) != LEVELS_VERSION or str(f["digest"]) != digest:
+                return None
+            count, reported = int(f["count"]), int(f["reported"])
+        problems, units, nodes = [], [], []
+        for i in range(count):
+            u = UnitResponses.load(folder / f"level-{i}.npz", digest)
+            if u is None:
+                return None
+            with np.load(folder / f"level-{i}.mesh.npz") as f:
+                if str(f["digest"]) != digest:
+                    return None
+                lines = tuple(f[f"lines_{ax}"] for ax in range(3)) if bool(f["has_lines"]) else None
+                regions = (tuple(f[f"regions_{ax}"] for ax in range(3))
+                           if lines is not None and bool(f["has_regions"]) else None)
+                nodes.append(int(f["nodes"]))
+            problem = problem_for(lines, regions)
+            if problem.n_nodes != nodes[-1] or u.v.shape[0] not in (problem.n_nodes, problem.n_free):
+                return None  # meshed differently (another version of the mesher): compute again
+            problems.append(problem)
+            units.append(u)
+        return WhatIfLevels(problems, units, nodes, reported)
+    except (OSError, KeyError, ValueError):
+        return None

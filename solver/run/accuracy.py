@@ -209,8 +209,10 @@ class Ladder:
         return {self.model.parts[i].name: float(b[i]) for i in self.goal}
 
     def done(self, solver_error_k: float, wall_so_far_s: float, next_nodes: int | None,
-             memory_ok: bool = True) -> bool:
-        """True when the finest level meets the tolerance or a budget forbids another level."""
+             memory_ok: bool = True, next_grid_nodes: int | None = None) -> bool:
+        """True when the finest level meets the tolerance or a budget forbids another level.
+        ``next_nodes``: unknowns of the next level (planned or predicted); ``next_grid_nodes``: its
+        grid nodes, hanging ones included (what the memory check counts), if known."""
         s = self.settings
         b = self.goal_bounds(solver_error_k)
         tol = s.tolerance_k
@@ -231,8 +233,9 @@ class Ladder:
             budget = (f"the next mesh would need about {next_nodes:,} unknowns (nodes solved for), more than "
                       f"mesh.max_nodes ({s.max_nodes:,})")
         elif not memory_ok:
-            budget = (f"the next mesh (about {next_nodes:,} unknowns, more grid nodes) would not fit in the "
-                      "memory available")
+            size = (f"about {next_grid_nodes:,} grid nodes" if next_grid_nodes is not None
+                    else f"about {next_nodes:,} unknowns, more grid nodes")
+            budget = f"the next mesh ({size}) would not fit in the memory available"
         elif s.time_limit_s is not None and self.levels and wall_so_far_s + GROWTH_PER_LEVEL * 1.2 * \
                 self.levels[-1].wall_s > s.time_limit_s:
             budget = (f"the next mesh would likely end after mesh.time_limit_s ({s.time_limit_s:g} s; "

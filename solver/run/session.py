@@ -296,7 +296,8 @@ class RunSession:
                 guess = self._predicted_next_nodes()  # unknowns; the grid holds n_nodes/n_free times more nodes
                 grid_guess = guess * self.problem.n_nodes / max(1, self.problem.n_free)
                 fits = grid_guess * BYTES_PER_NODE_ESTIMATE <= 0.7 * available_memory_bytes()
-                if self.ladder.done(solver_err, time.perf_counter() - self.t_start, guess, fits):
+                if self.ladder.done(solver_err, time.perf_counter() - self.t_start, guess, fits,
+                                    next_grid_nodes=int(grid_guess)):
                     break
             lines, regions = self._next_lines()
             est = estimate_nodes(self.model, lines)
@@ -307,7 +308,8 @@ class RunSession:
                 mesh = build_mesh(self.model, lines_mm=lines, regions=regions)
                 unknowns = free_count(mesh)
             wall = time.perf_counter() - self.t_start
-            if s.refine and self.ladder.done(solver_err, wall, unknowns, memory_ok):
+            if s.refine and self.ladder.done(solver_err, wall, unknowns, memory_ok,
+                                             next_grid_nodes=None if mesh is not None else est):
                 break
             if not s.refine and (est > s.max_nodes or not memory_ok):
                 self.ladder.stop_reason = f"the estimate's next mesh (about {est:,} nodes) is over the budget"
