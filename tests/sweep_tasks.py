@@ -9,10 +9,10 @@ from solver.answers.sweep import run_group
 
 def dies_once(marker: str):
     """A task that kills its own worker process the first time it runs (``marker`` file absent)."""
-    def task(model_dict, structural, combos, linear_solver="auto"):
+    def task(model_dict, structural, combos, linear_solver="auto", tolerance_k="model"):
         m = Path(marker)
         if not m.exists():
             m.write_text(str(os.getpid()))
             os._exit(1)  # the worker process dies mid-task, as a crashed machine would
-        return run_group(model_dict, structural, combos, linear_solver)
+        return run_group(model_dict, structural, combos, linear_solver, tolerance_k)
     return task

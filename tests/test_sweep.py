@@ -6,6 +6,7 @@ import json
 import pytest
 
 import solver
+from solver.results.recorder import PeakRow
 from solver.run.session import RunSession
 from solver.answers.sweep import make_cases, read_sweep, run_sweep, sweep_to_folder
 from tests import modelkit as mk
@@ -41,12 +42,13 @@ def test_dask_results_equal_serial_and_fresh_solve(tmp_path, client):
     model_dict, _, variables = read_sweep(path)
     cases = make_cases(variables)
     assert len(cases) == 8
-    serial = run_sweep(model_dict, cases, None)
-    on_dask = run_sweep(model_dict, cases, client)
+    # tolerance none: every case's peaks on the file's mesh (as the fresh solve below), banded by two finer meshes
+    serial = run_sweep(model_dict, cases, None, tolerance_k=None)
+    on_dask = run_sweep(model_dict, cases, client, tolerance_k=None)
     assert on_dask == serial  # every number, bit for bit
     # and the folder written through the command line equals the serial one byte for byte
-    assert sweep_to_folder(path, tmp_path / "a", serial=True, quiet=True) == 0
-    assert sweep_to_folder(path, tmp_path / "b", workers=2, quiet=True) == 0
+    assert sweep_to_folder(path, tmp_path / "a", serial=True, quiet=True, tolerance_k=None) == 0
+    assert sweep_to_folder(path, tmp_path / "b", workers=2, quiet=True, tolerance_k=None) == 0
     for name in ("cases.csv", "worst.csv"):
         assert (tmp_path / "a" / name).read_bytes() == (tmp_path / "b" / name).read_bytes()
     assert (tmp_path / "b" / "margin.png").stat().st_size > 1000
@@ -64,6 +66,9 @@ def test_dask_results_equal_serial_and_fresh_solve(tmp_path, client):
     for r in fresh.finish():
         got = next(x for x in rows if x["part"] == r.part)
         assert abs(got["peak_c"] - r.peak_c) < 0.05
+        assert got["peak_error_k"] is not None and got["peak_error_k"] > 0, r.part  # every peak banded
+        assert got["status"] == PeakRow(r.part, r.rated_c, got["peak_c"], 0.0, None, None, (), 0.0,
+                                        got["peak_error_k"]).status  # and its verdict follows the band
 
 
 def test_killed_worker_case_is_retried(tmp_path, client):
@@ -71,10 +76,10 @@ def test_killed_worker_case_is_retried(tmp_path, client):
     model_dict, _, variables = read_sweep(path)
     cases = make_cases(variables)
     marker = tmp_path / "died"
-    results = run_sweep(model_dict, cases, client, task=dies_once(str(marker)))
+    results = run_sweep(model_dict, cases, client, task=dies_once(str(marker)), tolerance_k=None)
     assert marker.exists()  # a worker did die mid-task ...
     assert all(r is not None for r in results)  # ... and its case was rerun, not lost
-    assert results == run_sweep(model_dict, cases, None)
+    assert results == run_sweep(model_dict, cases, None, tolerance_k=None)
 
 
 @pytest.mark.parametrize("var, path", [
@@ -115,7 +120,7 @@ def test_load_watts_and_ambient_superposed_from_one_solve(tmp_path):
     model_dict, _, variables = read_sweep(path)
     cases = make_cases(variables)
     assert len(group_cases(cases, model_dict)) == 1
-    results = run_sweep(model_dict, cases, None)
+    results = run_sweep(model_dict, cases, None, tolerance_k=None)
     d = json.loads((tmp_path / "m.json").read_text())
     d["heat_loads"][0]["profile"]["value"] = 2.0
     d["ambient_c"] = 35.0
@@ -127,3 +132,29 @@ def test_load_watts_and_ambient_superposed_from_one_solve(tmp_path):
     for r in fresh.finish():
         got = next(x for x in rows if x["part"] == r.part)
         assert abs(got["peak_c"] - r.peak_c) < 0.05, (r.part, got["peak_c"], r.peak_c)
+
+
+def test_sweep_refines_like_solve(tmp_path):
+    """With the file's mesh.tolerance_k (default 1 K) a sweep's structural case runs the mesh ladder of
+    ``thermgui solve``: its unchanged case reproduces the run's refined peaks (0.05 K) and bands
+    (0.1 K: the unit responses' basis change stands in for the run's basis estimate), and
+    cases.csv carries the band."""
+    import csv
+
+    path = write_sweep(tmp_path, [{"field": "heat_loads[0].scale", "values": [1.0, 1.2]}])
+    model_dict, _, variables = read_sweep(path)
+    cases = make_cases(variables)
+    results = run_sweep(model_dict, cases, None)
+    run = RunSession(solver.parse_model(model_dict))
+    for _ in run.events():
+        pass
+    assert run.level >= 2  # refined: not the file's mesh
+    rows, _ = results[0]  # scale 1.0: the model as it is
+    for r in run.finish():
+        got = next(x for x in rows if x["part"] == r.part)
+        assert abs(got["peak_c"] - r.peak_c) < 0.05, r.part
+        assert abs(got["peak_error_k"] - r.peak_error_k) < 0.1, r.part
+    assert sweep_to_folder(path, tmp_path / "o", serial=True, quiet=True) == 0
+    with open(tmp_path / "o" / "cases.csv", newline="") as f:
+        table = list(csv.DictReader(f))
+    assert all(row["peak_error_k"] for row in table) and len(table) == 2 * len(rows)

@@ -55,6 +55,9 @@ def add_commands(sub) -> None:
     s.add_argument("--scheduler", default=None, metavar="ADDRESS",
                    help="address of a running Dask scheduler (default: a LocalCluster on this machine)")
     s.add_argument("--workers", type=int, default=None, help="LocalCluster worker processes (default: up to 4)")
+    s.add_argument("--tolerance", type=_tolerance, default="model", metavar="K",
+                   help="override mesh.tolerance_k for every case's mesh ladder (as thermgui solve; 'none' = "
+                        "the file's mesh, with two finer meshes for the band)")
     s.add_argument("--quiet", action="store_true")
 
 
@@ -71,7 +74,7 @@ def run_command(args, stream=None, err=None) -> int:
         from solver.answers.sweep import sweep_to_folder
 
         return sweep_to_folder(args.sweep, args.out, scheduler=args.scheduler, workers=args.workers,
-                               quiet=args.quiet, stream=stream, err=err)
+                               quiet=args.quiet, stream=stream, err=err, tolerance_k=args.tolerance)
     from solver.answers.whatif import whatif_to_folder
 
     return whatif_to_folder(args.model, args.out, args.scale, args.ambient_offset, quiet=args.quiet,

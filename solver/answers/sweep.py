@@ -45,11 +45,8 @@ SUPERPOSED_SCALE = re.compile(r"^heat_loads\[(\d+)\]\.scale$")
 AMBIENT_OFFSET = "ambient_offset_k"
 MAX_CASES = 10000
 CONNECT_TIMEOUT_S = 8.0
-# Sweeps answer on the file's mesh: no ladder per case (docs/one-solve-answers.md, "Mesh")
-MESH_NOTE = ("note: statuses and margins are on the file's mesh, without its mesh error (a coarse mesh can "
-             "read several kelvin off); check the worst cases with thermgui solve or thermgui whatif, which "
-             "give each peak its error band")
-CASE_COLUMNS = ["case", "part", "rated_c", "peak_c", "peak_time_s", "margin_k", "status", "basis_error_k"]
+CASE_COLUMNS = ["case", "part", "rated_c", "peak_c", "peak_error_k", "peak_time_s", "margin_k", "status",
+                "basis_error_k"]
 
 _PATH_TOKEN = re.compile(r"([^.\[\]]+)|\[(\d+)\]")
 
@@ -226,29 +223,32 @@ def group_cases(cases, model_dict: dict):
     return list(groups.items())
 
 
-def run_group(model_dict: dict, structural, combos, linear_solver: str = "auto"):
-    """One task: the model with ``structural`` values written in, one solve for its unit responses,
-    then every superposed combination. Returns [(rows as dicts, basis error K)] per combo."""
-    from solver.linalg.linsolve import choose_method
+def run_group(model_dict: dict, structural, combos, linear_solver: str = "auto", tolerance_k="model"):
+    """One task: the model with ``structural`` values written in, its mesh ladder as ``thermgui
+    solve`` runs it (``tolerance_k``: "model" = the file's ``mesh.tolerance_k``, a number, or None =
+    the file's mesh with two finer ones for the band), unit responses on the band's meshes, then
+    every superposed combination, each peak with its band (:mod:`solver.answers.whatifband`).
+    Returns [(rows as dicts, basis error K)] per combo."""
     from solver.model.modelfile import parse_model
-    from solver.fem.problem import build_problem
-    from solver.answers.whatif import compute_unit_responses, evaluate
+    from solver.answers.whatifband import band_levels_for, evaluate_with_band, rows_with_band
 
     d = copy.deepcopy(model_dict)
     for field, value in structural:
         _set(d, _split(field), value)
+    if tolerance_k != "model":
+        d.setdefault("mesh", {})["tolerance_k"] = tolerance_k
     model = parse_model(d)
-    problem = build_problem(model)
-    method = choose_method(problem.n_free, linear_solver).method
-    ur = compute_unit_responses(problem, "pardiso" if method == "pardiso-single" else method)
+    _, levels, _ = band_levels_for(model, linear_solver)
     out = []
     for combo in combos:
         scales = np.ones(len(model.heat_loads))
         for i, factor in combo["scales"].items():
             scales[i] = factor
-        rows = evaluate(problem, ur, scales, combo["offset"]).peak_rows()
-        out.append(([{"part": r.part, "rated_c": r.rated_c, "peak_c": r.peak_c, "peak_time_s": r.peak_time_s,
-                      "margin_k": r.margin_k, "status": r.status} for r in rows], float(ur.change_k)))
+        rec, bound = evaluate_with_band(levels, scales, combo["offset"])
+        rows = rows_with_band(rec, bound)
+        out.append(([{"part": r.part, "rated_c": r.rated_c, "peak_c": r.peak_c, "peak_error_k": r.peak_error_k,
+                      "peak_time_s": r.peak_time_s, "margin_k": r.margin_k, "status": r.status} for r in rows],
+                    float(levels.basis_change_k)))
     return out
 
 
@@ -267,9 +267,10 @@ def _validate_structural(model_dict, cases, source):
             raise ModelError([(p, f"{m} (in case {idx[0]}: {vals})") for p, m in e.issues], source)
 
 
-def run_sweep(model_dict, cases, client=None, progress=None, task=None):
+def run_sweep(model_dict, cases, client=None, progress=None, task=None, tolerance_k="model"):
     """Results per case [(rows, basis error)], computed on ``client`` (a dask.distributed Client) or
-    serially in this process when ``client`` is None. ``task`` replaces :func:`run_group` (tests)."""
+    serially in this process when ``client`` is None. ``task`` replaces :func:`run_group` (tests);
+    ``tolerance_k`` is handed to it (see :func:`run_group`)."""
     task = task or run_group
     groups = group_cases(cases, model_dict)
     sup = [split_case(model_dict, c)[1] for c in cases]
@@ -277,7 +278,7 @@ def run_sweep(model_dict, cases, client=None, progress=None, task=None):
     done = 0
     if client is None:
         for key, idx in groups:
-            for i, res in zip(idx, task(model_dict, key, [sup[i] for i in idx])):
+            for i, res in zip(idx, task(model_dict, key, [sup[i] for i in idx], tolerance_k=tolerance_k)):
                 results[i] = res
             done += len(idx)
             if progress:
@@ -287,7 +288,7 @@ def run_sweep(model_dict, cases, client=None, progress=None, task=None):
 
     futures = {}
     for gi, (key, idx) in enumerate(groups):
-        fut = client.submit(task, model_dict, key, [sup[i] for i in idx], pure=False,
+        fut = client.submit(task, model_dict, key, [sup[i] for i in idx], tolerance_k=tolerance_k, pure=False,
                             key=f"sweep-group-{gi}-{os.getpid()}-{time.time_ns()}")
         futures[fut] = idx
     for fut in as_completed(list(futures)):
@@ -317,19 +318,20 @@ def write_outputs(out_dir, variables, cases, results) -> None:
         for r in rows:
             flat.append((ci, case, r, err))
             w.writerow([ci] + [f"{case[f]:.6g}" for f in fields] +
-                       [r["part"], _num(r["rated_c"], "{:.12g}"), _num(r["peak_c"]), _num(r["peak_time_s"], "{:.12g}"),
-                        _num(r["margin_k"]), r["status"], _num(err, "{:.2g}")])
+                       [r["part"], _num(r["rated_c"], "{:.12g}"), _num(r["peak_c"]), _num(r.get("peak_error_k")),
+                        _num(r["peak_time_s"], "{:.12g}"), _num(r["margin_k"]), r["status"], _num(err, "{:.2g}")])
     _replace(out / "cases.csv", buf.getvalue())
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(["part", "worst_case", "peak_c", "margin_k", "status"] + fields)
+    w.writerow(["part", "worst_case", "peak_c", "peak_error_k", "margin_k", "status"] + fields)
     parts = list(dict.fromkeys(r["part"] for _, _, r, _ in flat))
     for part in parts:
         mine = [x for x in flat if x[2]["part"] == part]
         rated = [x for x in mine if x[2]["margin_k"] is not None]
         ci, case, r, _ = (min(rated, key=lambda x: x[2]["margin_k"]) if rated
                           else max(mine, key=lambda x: x[2]["peak_c"]))
-        w.writerow([part, ci, _num(r["peak_c"]), _num(r["margin_k"]), r["status"]] + [f"{case[f]:.6g}" for f in fields])
+        w.writerow([part, ci, _num(r["peak_c"]), _num(r.get("peak_error_k")), _num(r["margin_k"]), r["status"]]
+                   + [f"{case[f]:.6g}" for f in fields])
     _replace(out / "worst.csv", buf.getvalue())
     _plot(out / "margin.png", variables, flat)
 
@@ -380,7 +382,7 @@ def connect(scheduler: str | None, workers: int | None):
 
 
 def sweep_to_folder(sweep_path, out_dir, scheduler=None, workers=None, quiet=False, stream=None, err=None,
-                    serial: bool = False) -> int:
+                    serial: bool = False, tolerance_k="model") -> int:
     stream = stream if stream is not None else sys.stdout
     err = err if err is not None else sys.stderr
     t0 = time.perf_counter()
@@ -401,7 +403,8 @@ def sweep_to_folder(sweep_path, out_dir, scheduler=None, workers=None, quiet=Fal
         return 2
     groups = group_cases(cases, model_dict)
     say = (lambda m: None) if quiet else (lambda m: err.write(m + "\n"))
-    say(f"{sweep_path}: {len(cases)} cases, {len(groups)} solve(s) (the rest superposed from unit responses)")
+    say(f"{sweep_path}: {len(cases)} cases, {len(groups)} solve(s) (each a mesh ladder as thermgui solve runs "
+        "it, with unit responses on the meshes of its error band; the rest superposed from them)")
     client = cluster = None
     try:
         if not serial:
@@ -412,7 +415,7 @@ def sweep_to_folder(sweep_path, out_dir, scheduler=None, workers=None, quiet=Fal
                           f"{CONNECT_TIMEOUT_S:g} s ({type(e).__name__}: {e}); nothing was written\n")
                 return 1
         bar = _Bar(err, enabled=not quiet)
-        results = run_sweep(model_dict, cases, client, progress=bar.update)
+        results = run_sweep(model_dict, cases, client, progress=bar.update, tolerance_k=tolerance_k)
         bar.finish()
     except (SolveError, ModelError) as e:
         err.write(f"{sweep_path}: sweep stopped: {e}; nothing was written\n")
@@ -437,7 +440,6 @@ def sweep_to_folder(sweep_path, out_dir, scheduler=None, workers=None, quiet=Fal
         with open(Path(out_dir) / "worst.csv") as f:
             stream.write("worst case per part:\n" + f.read())
         stream.write(f"{len(cases)} cases in {time.perf_counter() - t0:.1f} s; results in {out_dir}\n")
-        stream.write(MESH_NOTE + "\n")
         from solver.caution import CAUTION
 
         stream.write(CAUTION + "\n")

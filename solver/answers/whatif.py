@@ -328,7 +328,7 @@ def whatif_to_folder(model_path, out_dir, scale_specs, ambient_offset=0.0, quiet
     from solver.run.cli import format_summary
     from solver.model.modelfile import load_model
     from solver.io.writers import write_history_csv, write_peaks_csv
-    from solver.answers.whatifband import (LEVELS_CACHE, evaluate_with_band, load_levels, prepare_levels,
+    from solver.answers.whatifband import (LEVELS_CACHE, band_levels_for, evaluate_with_band, load_levels,
                                            rows_with_band, save_levels)
 
     stream = stream if stream is not None else sys.stdout
@@ -356,9 +356,8 @@ def whatif_to_folder(model_path, out_dir, scale_specs, ambient_offset=0.0, quiet
     try:
         levels = load_levels(cache, digest, model) if cache.exists() else None
         if levels is None:
-            levels, note = _band_levels(model, linear_solver, say, prepare_levels)
-            save_levels(cache, digest, *levels)
-            levels = levels[1]
+            band, levels, note = band_levels_for(model, linear_solver, say)
+            save_levels(cache, digest, band, levels)
         else:
             say(f"{model_path}: reusing stored unit responses in {cache}")
         t_eval = time.perf_counter()
@@ -395,26 +394,3 @@ def whatif_to_folder(model_path, out_dir, scale_specs, ambient_offset=0.0, quiet
                      f"({time.perf_counter() - t0:.1f} s)\n")
         stream.write(CAUTION + "\n")
     return 0
-
-
-def _band_levels(model, linear_solver, say, prepare_levels):
-    """Run the model's mesh ladder (no files) and build unit responses on the meshes its bound
-    came from: ((BandLevels or None, WhatIfLevels), a warning when the ladder stopped short)."""
-    from solver.run.session import RunSession
-
-    session = RunSession(model, None, keep_fields=False, fields="none", linear_solver=linear_solver)
-    level = -1
-    for ev in session.events():
-        if ev.level != level:
-            level = ev.level
-            say(f"mesh level {level}: {session.problem.n_free:,} unknowns (the ladder of thermgui solve, "
-                "for the meshes of the error band)")
-    session.finish()
-    band = session.band_levels()
-    lad = session.ladder
-    note = None
-    if session.estimate and model.mesh.tolerance_k is not None and not lad.converged:
-        note = f"the mesh ladder stopped before the tolerance: {lad.stop_reason}"
-    levels = prepare_levels(model, band, session.problem, progress=lambda m: say("  " + m),
-                            linear_solver=linear_solver)
-    return (band, levels), note

@@ -77,6 +77,31 @@ def prepare_levels(model, levels, reported_problem, progress=None, cancel=None,
     return WhatIfLevels(problems, units, [p.n_nodes for p in problems], levels.reported)
 
 
+def band_levels_for(model, linear_solver: str = "auto", say=None):
+    """Run the model's mesh ladder as ``thermgui solve`` would (``model.mesh.tolerance_k``; no files)
+    and build unit responses on the meshes its bound came from: (BandLevels or None, WhatIfLevels,
+    a warning or None when the ladder stopped before the tolerance). ``say(text)`` hears progress."""
+    from solver.run.session import RunSession
+
+    say = say or (lambda text: None)
+    session = RunSession(model, None, keep_fields=False, fields="none", linear_solver=linear_solver)
+    level = -1
+    for ev in session.events():
+        if ev.level != level:
+            level = ev.level
+            say(f"mesh level {level}: {session.problem.n_free:,} unknowns (the ladder of thermgui solve, "
+                "for the meshes of the error band)")
+    session.finish()
+    band = session.band_levels()
+    lad = session.ladder
+    note = None
+    if session.estimate and model.mesh.tolerance_k is not None and not lad.converged:
+        note = f"the mesh ladder stopped before the tolerance: {lad.stop_reason}"
+    levels = prepare_levels(model, band, session.problem, progress=lambda m: say("  " + m),
+                            linear_solver=linear_solver)
+    return band, levels, note
+
+
 def evaluate_with_band(levels: WhatIfLevels, scales, ambient_offset: float = 0.0):
     """(recorder of the reported level, per-part bound K): the what-if on every level and its bound
     (NaN with a single level: nothing to compare with)."""
