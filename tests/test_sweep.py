@@ -37,6 +37,22 @@ def client():
     cluster.close()
 
 
+def assert_same_results(a, b):
+    """Two sweeps' results equal to round-off: Dask's workers run PARDISO on one thread (the nanny
+    sets MKL_NUM_THREADS=1), this process may run it on two, so the sums differ in the last bits."""
+    assert len(a) == len(b)
+    for (rows_a, err_a), (rows_b, err_b) in zip(a, b):
+        assert err_a == pytest.approx(err_b, rel=1e-6, abs=1e-9)
+        assert [r["part"] for r in rows_a] == [r["part"] for r in rows_b]
+        for ra, rb in zip(rows_a, rows_b):
+            assert ra["status"] == rb["status"] and ra["rated_c"] == rb["rated_c"]
+            for key in ("peak_c", "peak_error_k", "peak_time_s", "margin_k"):
+                if ra[key] is None or rb[key] is None:
+                    assert ra[key] is rb[key] is None, key
+                else:
+                    assert ra[key] == pytest.approx(rb[key], abs=1e-9), (ra["part"], key)
+
+
 def test_dask_results_equal_serial_and_fresh_solve(tmp_path, client):
     path = write_sweep(tmp_path, VARS)
     model_dict, _, variables = read_sweep(path)
@@ -45,7 +61,7 @@ def test_dask_results_equal_serial_and_fresh_solve(tmp_path, client):
     # tolerance none: every case's peaks on the file's mesh (as the fresh solve below), banded by two finer meshes
     serial = run_sweep(model_dict, cases, None, tolerance_k=None)
     on_dask = run_sweep(model_dict, cases, client, tolerance_k=None)
-    assert on_dask == serial  # every number, bit for bit
+    assert_same_results(on_dask, serial)
     # and the folder written through the command line equals the serial one byte for byte
     assert sweep_to_folder(path, tmp_path / "a", serial=True, quiet=True, tolerance_k=None) == 0
     assert sweep_to_folder(path, tmp_path / "b", workers=2, quiet=True, tolerance_k=None) == 0
@@ -79,7 +95,7 @@ def test_killed_worker_case_is_retried(tmp_path, client):
     results = run_sweep(model_dict, cases, client, task=dies_once(str(marker)), tolerance_k=None)
     assert marker.exists()  # a worker did die mid-task ...
     assert all(r is not None for r in results)  # ... and its case was rerun, not lost
-    assert results == run_sweep(model_dict, cases, None, tolerance_k=None)
+    assert_same_results(results, run_sweep(model_dict, cases, None, tolerance_k=None))
 
 
 @pytest.mark.parametrize("var, path", [

@@ -11,7 +11,7 @@ import pytest
 import solver
 from thermgui import cli
 from solver.run.session import RunSession
-from solver.answers.whatif import whatif_to_folder
+from solver.answers.whatifcommand import whatif_to_folder
 from tests import modelkit as mk
 
 

@@ -48,7 +48,7 @@ def test_lumped_body_matches_lumped_capacitance_solution():
     r_ref, tau_ref = 1.0 / (12.0 * area), 2000.0 * 900.0 * vol / (12.0 * area)
     res = compute_zth(prob)
     ref = r_ref * -np.expm1(-res.times / tau_ref)
-    assert res.times[-1] / res.times[0] >= 1e4
+    assert res.times[-1] / res.times[0] >= 1e4 * (1 - 1e-12)  # four decades (to round-off)
     assert res.times[0] < 0.01 * tau_ref and res.times[-1] > 5 * tau_ref
     assert rel_error(res.zth[0, 0], ref) < 1e-4
     fit = fit_foster(res.times, res.zth[0, 0])
@@ -103,7 +103,7 @@ def chips_zth():
 def test_foster_fit_within_one_percent_over_four_decades(chips_zth):
     prob, res = chips_zth
     assert res.parts == ["plate", "chip", "chip2"] and res.heated == ["chip", "chip2"]
-    assert res.times[-1] / res.times[0] >= 1e4
+    assert res.times[-1] / res.times[0] >= 1e4 * (1 - 1e-12)  # four decades (to round-off)
     for a, j, part, heated in res.pairs():
         z = res.zth[a, j]
         fit = fit_foster(res.times, z)

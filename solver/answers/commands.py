@@ -75,7 +75,7 @@ def run_command(args, stream=None, err=None) -> int:
 
         return sweep_to_folder(args.sweep, args.out, scheduler=args.scheduler, workers=args.workers,
                                quiet=args.quiet, stream=stream, err=err, tolerance_k=args.tolerance)
-    from solver.answers.whatif import whatif_to_folder
+    from solver.answers.whatifcommand import whatif_to_folder
 
     return whatif_to_folder(args.model, args.out, args.scale, args.ambient_offset, quiet=args.quiet,
                             linear_solver=args.linear_solver, stream=stream, err=err, tolerance_k=args.tolerance)

@@ -109,7 +109,9 @@ def _time_range(problem, modal: ModalBasis, g: np.ndarray, observed) -> tuple[fl
 
 def log_times(t_lo: float, t_hi: float, per_decade: int = POINTS_PER_DECADE) -> np.ndarray:
     n = int(np.ceil(np.log10(t_hi / t_lo) * per_decade)) + 1
-    return np.geomspace(t_lo, t_hi, n)
+    times = np.geomspace(t_lo, t_hi, n)
+    times[0], times[-1] = t_lo, t_hi  # the ends exactly (geomspace may round them)
+    return times
 
 
 def check_zth_model(problem) -> list[int]:

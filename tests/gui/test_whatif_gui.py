@@ -19,7 +19,7 @@ import solver  # noqa: E402
 from solver.model.modelfile import parse_model, save_model  # noqa: E402
 from solver.results.recorder import PEAK_COLUMNS, PeakRow  # noqa: E402
 from solver.run.session import RunSession  # noqa: E402
-from solver.answers.whatif import whatif_to_folder  # noqa: E402
+from solver.answers.whatifcommand import whatif_to_folder  # noqa: E402
 from modelkit import chip_on_plate  # noqa: E402
 
 from .guikit import ARTIFACTS  # noqa: E402
