@@ -111,6 +111,8 @@ def main(argv=None) -> int:
     ap.add_argument("--models", default="relay,radio,power,handheld")
     ap.add_argument("--reference-tolerance", type=float, default=0.25)
     ap.add_argument("--reference-max-nodes", type=int, default=6_000_000)
+    ap.add_argument("--reference-time-limit", type=float, default=600.0,
+                    help="mesh.time_limit_s of the reference ladder, s (default 600; 0 = none)")
     ap.add_argument("--reference-split", type=float, default=2.0,
                     help="the reference ladder starts at cell_mm / S and min_layers x S (default 2)")
     ap.add_argument("--uniform", default="", help="comma-separated split factors, e.g. 1,2,3")
@@ -146,7 +148,7 @@ def main(argv=None) -> int:
         m.run.method = args.method
         m.mesh.max_nodes = args.reference_max_nodes
         m.mesh.max_levels = 12
-        m.mesh.time_limit_s = None
+        m.mesh.time_limit_s = args.reference_time_limit or None
         m.mesh.cell_mm = float(m.mesh.cell_mm) / args.reference_split
         m.mesh.min_layers = int(round(m.mesh.min_layers * args.reference_split))
         s, rows, wall = _run(m, tolerance_k=args.reference_tolerance)
