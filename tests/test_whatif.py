@@ -124,6 +124,18 @@ def test_whatif_command_refines_like_solve(tmp_path, capsys):
     assert e.value.code == 2 and "--tolerance" in capsys.readouterr().err
 
 
+def test_whatif_refuses_a_mesh_too_large_exit_2(tmp_path, capsys):
+    """A file mesh that would not fit in memory: refused before allocation, exit 2 naming
+    mesh.cell_mm, nothing written (the same refusal as thermgui solve)."""
+    d = base_model()
+    d["mesh"]["cell_mm"] = 0.01
+    path = tmp_path / "m.json"
+    path.write_text(json.dumps(d))
+    assert whatif_to_folder(path, tmp_path / "o", [], 0.0, quiet=True) == 2
+    assert "mesh.cell_mm" in capsys.readouterr().err
+    assert not (tmp_path / "o").exists()
+
+
 def test_whatif_bad_scale_exit_2(tmp_path, capsys):
     path = tmp_path / "m.json"
     path.write_text(json.dumps(base_model()))

@@ -67,6 +67,9 @@ def whatif_to_folder(model_path, out_dir, scale_specs, ambient_offset=0.0, quiet
             tmp = out / (name + ".part")
             writer(tmp)
             tmp.replace(out / name)
+    except ModelError as e:  # e.g. a mesh level refused before allocation (memory)
+        err.write(e.with_source(e.source or str(model_path)).describe() + "\n")
+        return 2
     except SolveError as e:
         err.write(f"{model_path}: what-if failed: {e}\n")
         return 1
