@@ -174,3 +174,16 @@ def test_sweep_refines_like_solve(tmp_path):
     with open(tmp_path / "o" / "cases.csv", newline="") as f:
         table = list(csv.DictReader(f))
     assert all(row["peak_error_k"] for row in table) and len(table) == 2 * len(rows)
+
+
+def test_sweep_of_a_settled_cycle_refused_exit_2(tmp_path, capsys):
+    """Sweep cases are superposed from unit responses, which a settled cycle's load-dependent start
+    state breaks (as for thermgui whatif): exit 2 naming run.periodic, before any solve, nothing written."""
+    path = write_sweep(tmp_path, VARS[:1])
+    d = json.loads((tmp_path / "m.json").read_text())
+    d["run"]["periodic"] = True
+    (tmp_path / "m.json").write_text(json.dumps(d))
+    solver.parse_model(d)  # a valid model
+    assert sweep_to_folder(path, tmp_path / "o", serial=True, quiet=True) == 2
+    assert "run.periodic" in capsys.readouterr().err
+    assert not (tmp_path / "o").exists()

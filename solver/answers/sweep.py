@@ -393,7 +393,9 @@ def sweep_to_folder(sweep_path, out_dir, scheduler=None, workers=None, quiet=Fal
         from solver.model.modelfile import parse_model
 
         try:
-            parse_model(model_dict)
+            from solver.answers.whatif import check_whatif
+
+            check_whatif(parse_model(model_dict))  # cases are superposed: linear, no settled cycle
         except ModelError as e:
             raise e.with_source(str(model_path))
         cases = make_cases(variables)

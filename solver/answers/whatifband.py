@@ -81,8 +81,10 @@ def band_levels_for(model, linear_solver: str = "auto", say=None):
     """Run the model's mesh ladder as ``thermgui solve`` would (``model.mesh.tolerance_k``; no files)
     and build unit responses on the meshes its bound came from: (BandLevels or None, WhatIfLevels,
     a warning or None when the ladder stopped before the tolerance). ``say(text)`` hears progress."""
+    from solver.answers.whatif import check_whatif
     from solver.run.session import RunSession
 
+    check_whatif(model)  # before the ladder: superposition must hold
     say = say or (lambda text: None)
     session = RunSession(model, None, keep_fields=False, fields="none", linear_solver=linear_solver)
     level = -1
