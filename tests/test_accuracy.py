@@ -243,6 +243,31 @@ def test_ladder_plans_no_level_it_will_not_solve(monkeypatch):
     assert "mesh.max_levels (3)" in session.ladder.stop_reason
 
 
+def test_ladder_stops_before_a_level_that_would_lose_its_factorization(monkeypatch):
+    """A reduced run that factors stops refining, as a budget stop, before a level whose factor
+    would be over the direct solver's budget (its basis would then take one multigrid CG solve per
+    vector, far beyond what the last level's time predicts): the budget check is made to say so for
+    the third level planned; three levels are solved, the reason is given, the band is kept."""
+    import solver.run.session as session_mod
+    from solver.linalg.linsolve import SolverChoice
+
+    calls = []
+    real = session_mod.choose_method
+
+    def over_budget_from_the_third(n, requested="auto", **kw):
+        calls.append(n)
+        return SolverChoice("multigrid", "over budget (test)") if len(calls) >= 3 else real(n, requested, **kw)
+
+    monkeypatch.setattr(session_mod, "choose_method", over_budget_from_the_third)
+    d = heated_box(4.0, 1e-4, max_levels=8)
+    session, row = solve(d)
+    assert session.stepper.method == "reduced"
+    assert len(calls) == 3 and len(session.ladder.levels) == 3
+    assert "multigrid" in session.ladder.stop_reason and not session.ladder.converged
+    assert session.ladder.unconverged and session.ladder.unconverged[0][0] == "block"
+    assert row.peak_error_k is not None and row.peak_error_k > 1e-4
+
+
 def test_reused_factorization_gives_the_influence_field():
     """The influence field from a handed-on K + M/τ factorization solves that system."""
     from solver.linalg.linsolve import make_solver

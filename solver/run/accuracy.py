@@ -242,10 +242,16 @@ class Ladder:
                       f"{wall_so_far_s:.0f} s used)")
         if budget is None:
             return False
-        self.stop_reason = budget
-        if tol is not None:
-            self.unconverged = [(k, v) for k, v in b.items() if not (np.isfinite(v) and v <= tol)]
+        self.stop(solver_error_k, budget)
         return True
+
+    def stop(self, solver_error_k: float, reason: str) -> None:
+        """Stop refining for ``reason`` (a budget): the parts still above the tolerance are noted."""
+        self.stop_reason = reason
+        tol = self.settings.tolerance_k
+        if tol is not None:
+            b = self.goal_bounds(solver_error_k)
+            self.unconverged = [(k, v) for k, v in b.items() if not (np.isfinite(v) and v <= tol)]
 
     def record(self) -> dict:
         """The mesh-independence record for run.json."""
