@@ -391,10 +391,9 @@ def sweep_to_folder(sweep_path, out_dir, scheduler=None, workers=None, quiet=Fal
             raise ModelError(("--workers", f"must be at least 1 (got {workers})"))
         model_dict, model_path, variables = read_sweep(sweep_path)
         from solver.model.modelfile import parse_model
+        from solver.answers.whatif import check_whatif
 
         try:
-            from solver.answers.whatif import check_whatif
-
             check_whatif(parse_model(model_dict))  # cases are superposed: linear, no settled cycle
         except ModelError as e:
             raise e.with_source(str(model_path))

@@ -245,16 +245,16 @@ class RunSession:
         lines, _ = refined_lines(self.model, self.problem.mesh, fields, duals, hot, goal or None)
         return lines, None
 
-    def _would_lose_factorization(self, measured, measured_nodes: int, unknowns: int) -> bool:
-        """Would a reduced run that factors now fall back to multigrid on the next level? (Its basis
-        then costs one CG solve per vector, many times the factorization's time, which the time
-        limit, judged from the last level, does not foresee; benchmarks/README.md, session 11.)"""
+    def _would_lose_factorization(self, factor_bytes: float | None, unknowns: int) -> bool:
+        """Would a reduced run that factors now fall back to multigrid on a next level of ``unknowns``
+        whose double factor is predicted at ``factor_bytes``? (Its basis then costs one CG solve per
+        vector, many times the factorization's time, which the time limit, judged from the last
+        level, does not foresee; benchmarks/README.md, session 11.)"""
         st = self.stepper
-        if (measured is None or st.method != "reduced" or self.linear_solver != "auto"
+        if (factor_bytes is None or st.method != "reduced" or self.linear_solver != "auto"
                 or st.choice.method not in ("pardiso", "pardiso-single")):
             return False
-        hint = scaled_factor_bytes(measured, measured_nodes, unknowns)
-        return choose_method(unknowns, "auto", factor_bytes=hint).method == "multigrid"
+        return choose_method(unknowns, "auto", factor_bytes=factor_bytes).method == "multigrid"
 
     def _local_planes(self) -> bool:
         """Refine with planes active only where needed (hanging nodes, :mod:`solver.mesh.localplanes`)?
@@ -326,11 +326,11 @@ class RunSession:
                 self.ladder.stop_reason = f"the estimate's next mesh (about {est:,} nodes) is over the budget"
                 break
             measured, measured_nodes = self.stepper.factor_bytes_measured, self.problem.n_free
-            if s.refine and mesh is not None and self._would_lose_factorization(measured, measured_nodes, unknowns):
+            predicted = None if measured is None else scaled_factor_bytes(measured, measured_nodes, unknowns)
+            if s.refine and self._would_lose_factorization(predicted, unknowns):
                 self.ladder.stop(solver_err, f"the next mesh ({unknowns:,} unknowns) would need a factorization "
-                                 f"of about {scaled_factor_bytes(measured, measured_nodes, unknowns) / 1e9:.1f} GB, "
-                                 "over the direct solver's memory budget; its reduced basis would be built with "
-                                 "multigrid, one slow solve per vector")
+                                 f"of about {predicted / 1e9:.1f} GB, over the direct solver's memory budget; its "
+                                 "reduced basis would be built with multigrid, one slow solve per vector")
                 break
             self.problem = build_problem(self.model, mesh or build_mesh(self.model, lines_mm=lines, regions=regions))
             hint = (None if measured is None else
